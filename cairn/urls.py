@@ -1,0 +1,15 @@
+from __future__ import annotations
+
+from django.contrib import admin
+from django.urls import include, path
+from drf_spectacular.views import SpectacularAPIView, SpectacularSwaggerView
+
+urlpatterns = [
+    path("admin/", admin.site.urls),
+    path("api/v1/", include("studies.api.urls")),
+    path("api/schema/", SpectacularAPIView.as_view(), name="studies-schema"),
+    path(
+        "api/docs/", SpectacularSwaggerView.as_view(url_name="studies-schema"), name="studies-docs"
+    ),
+    path("", include("viewer.urls")),
+]

@@ -1,0 +1,1 @@
+"""The JSON API under /api/v1/: the only thing the viewer's pages talk to."""

@@ -1,0 +1,77 @@
+"""Build the demo study, then serve it with one Celery worker until Ctrl-C."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+
+from django.core.management.base import BaseCommand
+
+from studies.services.demo import COORDINATOR, DEMO_PASSWORD, NEWCOMER, READERS, build_demo
+
+ADDRESS = "127.0.0.1:8000"
+
+
+class Command(BaseCommand):
+    help = "Build the demo study (idempotent) and serve it with a Celery worker."
+
+    def add_arguments(self, parser) -> None:
+        parser.add_argument("--no-serve", action="store_true", help="only build the demo data")
+        parser.add_argument("--address", default=ADDRESS, help=f"host:port (default {ADDRESS})")
+
+    def handle(self, *args, **options) -> None:
+        self.stdout.write("Building the demo study (synthetic phantoms, invented readers)...")
+        study = build_demo(stdout=self.stdout)
+        self.stdout.write(
+            self.style.SUCCESS(f"Demo study ready: {study.name} ({study.cases.count()} cases)")
+        )
+        if options["no_serve"]:
+            return
+        self._serve(options["address"])
+
+    def _logins(self, address: str) -> None:
+        self.stdout.write(f"\ncairn demo at http://{address}/  (research use only)\n")
+        self.stdout.write(f"All demo passwords: {DEMO_PASSWORD}")
+        self.stdout.write(f"  coordinator + adjudicator: {COORDINATOR[0]}")
+        for reader in READERS:
+            self.stdout.write(f"  reader with simulated reads: {reader.username}")
+        self.stdout.write(f"  reader with a fresh worklist: {NEWCOMER[0]}")
+        self.stdout.write("Press Ctrl-C to stop the web server and the worker.\n")
+
+    def _serve(self, address: str) -> None:
+        python = sys.executable
+        children = [
+            subprocess.Popen([python, "manage.py", "runserver", address, "--noreload"]),
+            subprocess.Popen(
+                [
+                    python,
+                    "-m",
+                    "celery",
+                    "-A",
+                    "cairn",
+                    "worker",
+                    "--pool=solo",
+                    "--loglevel=INFO",
+                    "--hostname=demo@%h",
+                ]
+            ),
+        ]
+        self._logins(address)
+        try:
+            while all(child.poll() is None for child in children):
+                time.sleep(0.5)
+            self.stderr.write("a demo process stopped; shutting down the other")
+        except KeyboardInterrupt:
+            self.stdout.write("\nStopping...")
+        finally:
+            for child in children:
+                if child.poll() is None:
+                    child.send_signal(signal.SIGINT if os.name == "posix" else signal.SIGTERM)
+            for child in children:
+                try:
+                    child.wait(timeout=10)
+                except subprocess.TimeoutExpired:
+                    child.kill()
