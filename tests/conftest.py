@@ -77,5 +77,4 @@ def open_study(cast, settings):
         cases.create_case(study, stored, checksum=volume.checksum, label=f"case-{index}")
     for name in ("reader_a", "reader_b"):
         studies.add_member(study, cast[name], Role.READER)
-    studies.open_study(study, now=timezone.now() - timedelta(days=1))
-    return study
+    return studies.open_study(study, now=timezone.now() - timedelta(days=1))

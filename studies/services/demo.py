@@ -47,7 +47,7 @@ COORDINATOR = ("hale", "Imogen Hale")
 READERS = (
     SimulatedReader("ada", "Ada Brandt", 0.8, (0.0, 0.0, 0.0), (0.0, 0.0, 0.0)),
     SimulatedReader("ben", "Ben Okafor", 1.3, (1.2, 0.0, -0.6), (0.0, 0.0, 0.0)),
-    SimulatedReader("cleo", "Cleo Marsh", 0.9, (0.0, 0.0, 0.0), (0.0, 0.45, 0.0)),
+    SimulatedReader("cleo", "Cleo Marsh", 0.9, (0.0, 0.0, 0.0), (0.0, 0.8, 0.2)),
 )
 NEWCOMER = ("dev", "Dev Nair")
 
@@ -157,7 +157,7 @@ def _simulate_reader(
 ) -> None:
     """Place and submit every read of one simulated reader, first reads then repeats."""
     first = list(study.reads.filter(reader=user, read_number=1).order_by("worklist_position"))
-    span = timedelta(weeks=WEEKS * 0.6)
+    span = timedelta(weeks=WEEKS * 0.7)
     for n, read in enumerate(first):
         when = start + timedelta(days=1) + span * (n / max(len(first) - 1, 1))
         _read_once(read, user, model, truth[read.case_id], when, start, rng)

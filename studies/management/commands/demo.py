@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import signal
 import subprocess
 import sys
@@ -13,6 +12,10 @@ from django.core.management.base import BaseCommand
 from studies.services.demo import COORDINATOR, DEMO_PASSWORD, NEWCOMER, READERS, build_demo
 
 ADDRESS = "127.0.0.1:8000"
+
+
+def _interrupt(signum, frame) -> None:
+    raise KeyboardInterrupt
 
 
 class Command(BaseCommand):
@@ -42,6 +45,10 @@ class Command(BaseCommand):
         self.stdout.write("Press Ctrl-C to stop the web server and the worker.\n")
 
     def _serve(self, address: str) -> None:
+        # Ctrl-C or a plain `kill` both stop the demo (SIGINT may arrive ignored when started
+        # from a script, so put the default handler back).
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+        signal.signal(signal.SIGTERM, _interrupt)
         python = sys.executable
         children = [
             subprocess.Popen([python, "manage.py", "runserver", address, "--noreload"]),
@@ -69,7 +76,7 @@ class Command(BaseCommand):
         finally:
             for child in children:
                 if child.poll() is None:
-                    child.send_signal(signal.SIGINT if os.name == "posix" else signal.SIGTERM)
+                    child.terminate()
             for child in children:
                 try:
                     child.wait(timeout=10)
