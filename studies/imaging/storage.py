@@ -87,16 +87,28 @@ def suggested_window(data: np.ndarray, modality: str) -> tuple[float, float]:
     return float(low + width / 2.0), width
 
 
-def _fsync_write(path: Path, payload: bytes) -> None:
+def _write_compressed(path: Path, array: np.ndarray) -> int:
+    """Write `array` i-fastest, zstd-compressed, one k-slab at a time; return the file size.
+
+    Slab by slab keeps the extra memory to one slice (a whole-array ``tobytes`` would
+    double the peak). The frame records the content size, so one-shot decompression works.
+    """
+    compressor = zstandard.ZstdCompressor(level=_ZSTD_LEVEL, threads=-1)
     with open(path, "wb") as handle:
-        handle.write(payload)
+        with compressor.stream_writer(handle, size=array.nbytes, closefd=False) as writer:
+            for k in range(array.shape[2]):
+                writer.write(array[:, :, k].tobytes(order="F"))
         handle.flush()
         os.fsync(handle.fileno())
+    return path.stat().st_size
 
 
-def _compress(array: np.ndarray) -> bytes:
-    raw = np.asfortranarray(array).tobytes(order="F")
-    return zstandard.ZstdCompressor(level=_ZSTD_LEVEL, threads=-1).compress(raw)
+def _fsync_dir(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
 
 
 def write_case_files(root: Path, rel_dir: str, volume: Volume) -> StoredVolume:
@@ -134,12 +146,11 @@ def write_case_files(root: Path, rel_dir: str, volume: Volume) -> StoredVolume:
         nib.save(image, staging / CANONICAL_NAME)
         with open(staging / CANONICAL_NAME, "rb+") as handle:
             os.fsync(handle.fileno())
-        viewer = _compress(data)
-        _fsync_write(staging / VIEWER_NAME, viewer)
+        viewer_size = _write_compressed(staging / VIEWER_NAME, data)
         coarse_data = data[::2, ::2, ::2]
-        coarse = _compress(coarse_data)
-        _fsync_write(staging / COARSE_NAME, coarse)
+        coarse_size = _write_compressed(staging / COARSE_NAME, coarse_data)
         os.rename(staging, target)
+        _fsync_dir(target.parent)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
@@ -157,9 +168,9 @@ def write_case_files(root: Path, rel_dir: str, volume: Volume) -> StoredVolume:
         value_min=float(data.min()),
         value_max=float(data.max()),
         viewer_bytes=int(data.nbytes),
-        viewer_compressed_bytes=len(viewer),
+        viewer_compressed_bytes=viewer_size,
         coarse_shape=tuple(int(n) for n in coarse_data.shape),
-        coarse_compressed_bytes=len(coarse),
+        coarse_compressed_bytes=coarse_size,
     )
 
 
