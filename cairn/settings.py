@@ -35,6 +35,11 @@ CSRF_TRUSTED_ORIGINS = envlist("CSRF_TRUSTED_ORIGINS", [])
 
 CAIRN_DATA_DIR = Path(envstr("CAIRN_DATA_DIR", str(VAR_DIR / "data")))
 CAIRN_UPLOAD_MAX_BYTES = envint("CAIRN_UPLOAD_MAX_BYTES", 2 * 1024**3)
+CAIRN_UPLOAD_DIR = Path(envstr("CAIRN_UPLOAD_DIR", str(VAR_DIR / "uploads")))
+# Zip archives (imports and uploads): refused beyond these limits (zip-bomb guard).
+CAIRN_ZIP_MAX_BYTES = envint("CAIRN_ZIP_MAX_BYTES", 8 * 1024**3)
+CAIRN_ZIP_MAX_FILES = envint("CAIRN_ZIP_MAX_FILES", 20_000)
+CAIRN_ZIP_MAX_RATIO = envint("CAIRN_ZIP_MAX_RATIO", 200)
 CAIRN_ID_SALT = envsecret("CAIRN_ID_SALT") or SECRET_KEY
 
 INSTALLED_APPS = [

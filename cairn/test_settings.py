@@ -16,3 +16,4 @@ STORAGES = {
     "staticfiles": {"BACKEND": "django.contrib.staticfiles.storage.StaticFilesStorage"},
 }
 STATIC_ROOT = Path(tempfile.mkdtemp(prefix="cairn-test-static-"))  # noqa: F405
+CAIRN_UPLOAD_DIR = Path(tempfile.mkdtemp(prefix="cairn-test-uploads-"))  # noqa: F405

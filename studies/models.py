@@ -278,6 +278,8 @@ class AnalysisRun(models.Model):
     reason = models.TextField(blank=True, help_text="Why a failed run failed.")
     requested_at = models.DateTimeField(auto_now_add=True)
     started_at = models.DateTimeField(null=True, blank=True)
+    heartbeat_at = models.DateTimeField(null=True, blank=True)
+    attempts = models.PositiveSmallIntegerField(default=1)
     finished_at = models.DateTimeField(null=True, blank=True)
 
     class Meta:

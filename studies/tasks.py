@@ -8,9 +8,12 @@ from __future__ import annotations
 import logging
 
 from celery import shared_task
+from django.db import OperationalError
 
 from .models import Study
+from .services.analysis_runs import execute
 from .services.rebuild import rebuild_placements
+from .services.uploads import run_upload
 
 log = logging.getLogger(__name__)
 
@@ -23,3 +26,27 @@ def rebuild_placements_task(*, study_pk: int) -> int:
         log.info("study %s is gone; nothing to rebuild", study_pk)
         return 0
     return rebuild_placements(study)
+
+
+@shared_task(
+    name="studies.compute_analysis",
+    acks_late=True,
+    reject_on_worker_lost=True,
+    time_limit=1800,
+    soft_time_limit=1700,
+    autoretry_for=(OperationalError,),
+    max_retries=3,
+    default_retry_delay=10,
+)
+def compute_analysis(*, run_pk: int) -> str | None:
+    """Compute one analysis run (a duplicate or late message for a finished run does nothing)."""
+    run = execute(run_pk)
+    return run.status if run is not None else None
+
+
+@shared_task(name="studies.import_upload", acks_late=True, time_limit=3600)
+def import_upload_task(*, job_id: str) -> str:
+    """Import one saved coordinator upload; returns its final state (finished or failed)."""
+    status = run_upload(job_id)
+    log.info("upload %s: %s", job_id, status.get("state"))
+    return str(status.get("state"))

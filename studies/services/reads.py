@@ -200,8 +200,17 @@ def submit_read(read: Read, user, now: datetime | None = None) -> Read:
     read.submitted_at = now
     read.opened_at = read.opened_at or now
     read.save(update_fields=["status", "submitted_at", "opened_at"])
+    transaction.on_commit(lambda: _analyse_after_submit(read.study_id))
     if read.read_number == FIRST_READ:
         Read.objects.filter(
             Q(case=read.case, reader=read.reader) & ~Q(read_number=FIRST_READ)
         ).update(available_from=repeat_available_from(now, read.study.washout_days))
     return read
+
+
+def _analyse_after_submit(study_pk: int) -> None:
+    from .analysis_runs import request_analysis
+
+    study = Study.objects.filter(pk=study_pk).first()
+    if study is not None:
+        request_analysis(study)

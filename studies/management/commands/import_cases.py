@@ -61,10 +61,10 @@ class Command(BaseCommand):
 
     def _table(self, outcomes: list[Outcome]) -> None:
         rows = [(o.status, o.source, o.detail.replace("\n", "\n" + " " * 16)) for o in outcomes]
-        width = min(max((len(r[1]) for r in rows), default=6), 60)
+        width = min(max((len(r[1]) for r in rows), default=6), 72)
         self.stdout.write(f"{'result':<14}  {'source':<{width}}  detail")
         for status, source, detail in rows:
-            shown = source if len(source) <= width else "..." + source[-(width - 3) :]
+            shown = source if len(source) <= width else f"{source[:24]}...{source[-(width - 27) :]}"
             self.stdout.write(f"{status:<14}  {shown:<{width}}  {detail}")
         counts = {
             s: sum(o.status == s for o in outcomes)

@@ -1,0 +1,218 @@
+"""Analysis runs: read a study's placements into the core's table, run it, store the result.
+
+A run is keyed by its study and the fingerprint of its inputs (the placements table, the
+parameters and the analysis code version): asking again for the same inputs returns the
+stored run instead of computing a duplicate, and at most one run per study waits in the
+queue (requests made meanwhile fold into it).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import math
+from datetime import timedelta
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from django.db import transaction
+from django.db.models import F
+from django.utils import timezone
+
+from .. import analysis
+from ..analysis.pipeline import AnalysisParameterError, run_analysis
+from ..analysis.table import PlacementTableError
+from ..constants import PlacementState, ReadStatus, RunStatus
+from ..models import AnalysisRun, Placement, Study
+
+log = logging.getLogger(__name__)
+
+#: A run whose worker has not reported for this long may be taken over by a redelivery.
+STALE_AFTER = timedelta(minutes=2)
+PLACEMENT_COLUMNS = ["case", "landmark", "reader", "read", "x_mm", "y_mm", "z_mm", "absent", "placed_at"]
+
+
+def code_version() -> str:
+    """cairn's version plus a hash of the analysis core's source, so code changes rerun."""
+    import cairn
+
+    digest = hashlib.sha256()
+    for path in sorted(Path(analysis.__file__).parent.glob("*.py")):
+        digest.update(path.read_bytes())
+    return f"{cairn.__version__}+{digest.hexdigest()[:12]}"
+
+
+def placements_table(study: Study) -> pd.DataFrame:
+    """The study's submitted placements as the core's long table (one query)."""
+    rows = (
+        Placement.objects.filter(read__study=study, read__status=ReadStatus.SUBMITTED)
+        .order_by("read__case__pseudonym", "landmark__order", "read__reader__username",
+                  "read__read_number")
+        .values_list("read__case__pseudonym", "landmark__code", "read__reader__username",
+                     "read__read_number", "x_mm", "y_mm", "z_mm", "state", "placed_at")
+    )
+    table = pd.DataFrame.from_records(list(rows), columns=PLACEMENT_COLUMNS)
+    table["absent"] = (table["absent"] == PlacementState.ABSENT).astype(int)
+    table["placed_at"] = [t.isoformat() for t in table["placed_at"]]
+    return table
+
+
+def parameters_of(study: Study) -> dict:
+    return {"consensus": study.consensus_method, "tolerance_mm": float(study.tolerance_mm)}
+
+
+def fingerprint(table: pd.DataFrame, parameters: dict, version: str) -> str:
+    digest = hashlib.sha256(table.to_csv(index=False).encode())
+    digest.update(json.dumps(parameters, sort_keys=True).encode())
+    digest.update(version.encode())
+    return digest.hexdigest()
+
+
+def request_analysis(study: Study) -> AnalysisRun:
+    """Ask for an analysis of the study's current placements; enqueue it after commit.
+
+    Returns the waiting run when one is queued already, the stored run when the inputs
+    have not changed since it was computed, else a new pending run.
+    """
+    with transaction.atomic():
+        Study.objects.select_for_update().filter(pk=study.pk).first()
+        waiting = study.analysis_runs.filter(status=RunStatus.PENDING).first()
+        if waiting is not None:
+            return waiting
+        parameters = parameters_of(study)
+        version = code_version()
+        digest = fingerprint(placements_table(study), parameters, version)
+        done = study.analysis_runs.filter(input_digest=digest).exclude(status=RunStatus.FAILED)
+        if done.exists():
+            return done.first()
+        run = AnalysisRun.objects.create(study=study, parameters=parameters, input_digest=digest,
+                                         code_version=version)
+        transaction.on_commit(lambda: enqueue(run.pk))
+    return run
+
+
+def enqueue(run_pk: int) -> bool:
+    """Send a run to the workers; when the broker is down, say so on the run and go on."""
+    from ..tasks import compute_analysis
+
+    try:
+        compute_analysis.delay(run_pk=run_pk)
+    except Exception as error:  # noqa: BLE001 - any broker failure must not break reading
+        log.warning("analysis run %s deferred: broker unreachable (%s)", run_pk, error)
+        AnalysisRun.objects.filter(pk=run_pk).update(
+            progress_message="deferred: the task queue is unreachable; it will be sent again")
+        return False
+    return True
+
+
+def claim(run_pk: int) -> bool:
+    """Move a run to running if it is pending, or running but stale; True if this caller won."""
+    now = timezone.now()
+    claimed = AnalysisRun.objects.filter(pk=run_pk, status=RunStatus.PENDING).update(
+        status=RunStatus.RUNNING, started_at=now, heartbeat_at=now, progress=0.0)
+    if claimed:
+        return True
+    return bool(AnalysisRun.objects.filter(
+        pk=run_pk, status=RunStatus.RUNNING, heartbeat_at__lt=now - STALE_AFTER
+    ).update(started_at=now, heartbeat_at=now, progress=0.0, attempts=F("attempts") + 1))
+
+
+def _cell(value: object) -> object:
+    """A table cell as exact JSON: floats keep every digit, NaN and NaT become null."""
+    if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NaT:
+        return None
+    if isinstance(value, np.generic):
+        return _cell(value.item())
+    if isinstance(value, pd.Timestamp):
+        return value.isoformat()
+    return value
+
+
+def _frame_json(frame: pd.DataFrame) -> dict:
+    rows = [[_cell(v) for v in row] for row in frame.astype(object).itertuples(index=False)]
+    return {"columns": [str(c) for c in frame.columns], "data": rows}
+
+
+def frame_of(stored: dict) -> pd.DataFrame:
+    """A stored result table back as a DataFrame."""
+    return pd.DataFrame(stored["data"], columns=stored["columns"])
+
+
+def execute(run_pk: int) -> AnalysisRun | None:
+    """Compute a claimed run and store its tables; expected failures are stored, not raised."""
+    if not claim(run_pk):
+        log.info("analysis run %s is not waiting (done, or running elsewhere)", run_pk)
+        return None
+    run = AnalysisRun.objects.select_related("study").get(pk=run_pk)
+
+    def progress(fraction: float, message: str) -> None:
+        AnalysisRun.objects.filter(pk=run_pk).update(
+            progress=round(0.1 + 0.85 * fraction, 3), progress_message=message[:200],
+            heartbeat_at=timezone.now())
+
+    table = placements_table(run.study)
+    n_reads = int(table.groupby(["case", "reader", "read"]).ngroups) if len(table) else 0
+    try:
+        if table.empty or table.groupby("case")["reader"].nunique().max() < 2:
+            raise PlacementTableError("too few reads to analyse: no case has submitted reads "
+                                      "from two readers yet")
+        result = run_analysis(table, **run.parameters, progress=progress)
+    except (PlacementTableError, AnalysisParameterError) as error:
+        return _finish(run, RunStatus.FAILED, n_reads, len(table), reason=str(error))
+    tables = {name: _frame_json(frame) for name, frame in result.tables.items()}
+    return _finish(run, RunStatus.COMPLETED, n_reads, len(table), tables=tables,
+                   summary=result.summary)
+
+
+@transaction.atomic
+def _finish(run: AnalysisRun, status: str, n_reads: int, n_placements: int, *, reason: str = "",
+            tables: dict | None = None, summary: dict | None = None) -> AnalysisRun:
+    run.status = status
+    run.n_reads, run.n_placements = n_reads, n_placements
+    run.reason = reason
+    run.tables = tables or {}
+    run.summary = summary or {}
+    run.progress = 1.0
+    run.progress_message = "done" if status == RunStatus.COMPLETED else "failed"
+    run.finished_at = timezone.now()
+    run.save()
+    if status == RunStatus.COMPLETED:
+        _adaptive_reads(run)
+    return run
+
+
+def _adaptive_reads(run: AnalysisRun) -> None:
+    """One more reader for each flagged case whose reads are all submitted (if enabled)."""
+    from .reads import add_extra_read
+
+    study = run.study
+    if not study.adaptive_reads or "consensus" not in run.tables:
+        return
+    consensus = frame_of(run.tables["consensus"])
+    flagged = set(consensus.loc[consensus["flagged"].astype(bool), "case"])
+    for case in study.cases.filter(pseudonym__in=flagged):
+        if not case.reads.exclude(status=ReadStatus.SUBMITTED).exists():
+            add_extra_read(study, str(case.code))
+
+
+def execute_with_predictions(study: Study, predictions: pd.DataFrame) -> tuple[dict, dict, str]:
+    """Run the core on the study's current placements with a detector's predictions.
+
+    Returns (stored tables, summary, input digest of the placements and parameters); the
+    tables are in the form of AnalysisRun.tables (read back with `frame_of`). Raises
+    PlacementTableError or AnalysisParameterError on input the core refuses.
+    """
+    table = placements_table(study)
+    if table.empty or table.groupby("case")["reader"].nunique().max() < 2:
+        raise PlacementTableError("too few reads to score a detector: no case has submitted "
+                                  "reads from two readers yet")
+    parameters = parameters_of(study)
+    result = run_analysis(table, predictions, **parameters)
+    tables = {name: _frame_json(frame) for name, frame in result.tables.items()}
+    return tables, result.summary, fingerprint(table, parameters, code_version())
+
+
+def latest_run(study: Study) -> AnalysisRun | None:
+    return study.analysis_runs.order_by("-requested_at").first()
