@@ -41,3 +41,11 @@ lock: $(STAMP)
 
 clean:
 	rm -rf var/
+
+# Load and fault tests (not part of make test): private PostgreSQL (54329), Redis (63790),
+# gunicorn and a Celery worker on loopback; one JSON object per figure per line.
+loadtest: $(STAMP)
+	$(BIN)/python -m tests.load.run
+
+faulttest: $(STAMP)
+	$(BIN)/python -m tests.faults.run

@@ -2,6 +2,7 @@ from __future__ import annotations
 
 from django.contrib import admin
 from django.urls import include, path
+from django.views.decorators.http import require_safe
 from drf_spectacular.views import SpectacularAPIView, SpectacularSwaggerView
 
 urlpatterns = [
@@ -9,7 +10,10 @@ urlpatterns = [
     path("api/v1/", include("studies.api.urls")),
     path("api/schema/", SpectacularAPIView.as_view(), name="studies-schema"),
     path(
-        "api/docs/", SpectacularSwaggerView.as_view(url_name="studies-schema"), name="studies-docs"
+        "api/docs/",
+        # GET and HEAD only: the page's HTML renderer cannot render any other reply.
+        require_safe(SpectacularSwaggerView.as_view(url_name="studies-schema")),
+        name="studies-docs",
     ),
     path("", include("viewer.urls")),
 ]

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
-from django.core.exceptions import PermissionDenied
+from django.core.exceptions import PermissionDenied, ValidationError
 from django.db.models import QuerySet
 from django.http import Http404
 
@@ -65,3 +65,27 @@ def get_own_read(user, code: str) -> Read:
     if read is None:
         raise Http404("no such read")
     return read
+
+
+def get_review_case(user, study_slug: str, case_code: str) -> Case:
+    """A case for the review page: the one way a non-coordinator sees every reader's points.
+
+    Coordinators may review any case of their study. Adjudicators may review only cases with
+    a flagged landmark in the latest completed analysis (studies.services.studies.add_member
+    keeps adjudicators from also reading). Outsiders get a 404; readers get a 403.
+    """
+    from .services.adjudication import queued_cases
+
+    study = get_study(user, study_slug, (Role.COORDINATOR, Role.ADJUDICATOR))
+    try:
+        case = study.cases.select_related("study").filter(code=case_code).first()
+    except (ValueError, ValidationError):
+        case = None
+    if case is None:
+        raise Http404("no such case")
+    held = roles_in(user, study)
+    if Role.COORDINATOR in held:
+        return case
+    if case.pseudonym not in queued_cases(study):
+        raise Http404("this case is not in the adjudication queue")
+    return case

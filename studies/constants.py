@@ -54,3 +54,20 @@ REPEAT_READ = 2
 CONFIDENCE_RANGE = (1, 3)
 # A click may land this far outside the outermost voxel centres (in voxels) and still count.
 VOLUME_MARGIN_VOXELS = 0.5
+
+
+class AdjudicationDecision(models.TextChoices):
+    ACCEPT_CONSENSUS = "accept_consensus", "Accept the consensus point"
+    TAKE_READER = "take_reader", "Take one reader's point"
+    NEW_POINT = "new_point", "Place a new point"
+
+
+class DetectorStatus(models.TextChoices):
+    COMPLETED = "completed", "Scored"
+    FAILED = "failed", "Could not be scored"
+
+
+#: Longest reason an adjudicator may give for a decision (characters).
+ADJUDICATION_REASON_MAX = 200
+#: Method written in the reference set for an adjudicated point.
+ADJUDICATED_METHOD = "adjudicated"

@@ -9,7 +9,10 @@ from django.core.validators import MaxValueValidator, MinValueValidator
 from django.db import models
 
 from .constants import (
+    ADJUDICATION_REASON_MAX,
+    AdjudicationDecision,
     ConsensusMethod,
+    DetectorStatus,
     EventKind,
     PlacementState,
     ReadStatus,
@@ -288,3 +291,91 @@ class AnalysisRun(models.Model):
 
     def __str__(self) -> str:
         return f"analysis of {self.study} ({self.status})"
+
+
+class AdjudicationEventQuerySet(models.QuerySet):
+    """Adjudication decisions are append-only: a revision is a new event."""
+
+    def update(self, **kwargs):
+        raise PermissionError("adjudication events are append-only and cannot be updated")
+
+    def delete(self):
+        raise PermissionError("adjudication events are append-only and cannot be deleted")
+
+
+class AdjudicationEvent(models.Model):
+    """One adjudicator's decision on one flagged case x landmark; the latest one counts.
+
+    `x_mm`, `y_mm`, `z_mm` are the decided point, world mm RAS+ (float64), copied from the
+    consensus or the reader's placement, or placed anew. `analysis_run` is the run whose
+    consensus table the adjudicator saw.
+    """
+
+    study = models.ForeignKey(Study, on_delete=models.PROTECT, related_name="adjudications")
+    case = models.ForeignKey(Case, on_delete=models.PROTECT, related_name="adjudications")
+    landmark = models.ForeignKey(Landmark, on_delete=models.PROTECT, related_name="adjudications")
+    adjudicator = models.ForeignKey(
+        settings.AUTH_USER_MODEL, on_delete=models.PROTECT, related_name="adjudications"
+    )
+    decision = models.CharField(max_length=24, choices=AdjudicationDecision)
+    source_read = models.ForeignKey(
+        Read, on_delete=models.PROTECT, null=True, blank=True, related_name="+",
+        help_text="The read whose point was taken (take_reader only).",
+    )
+    x_mm = models.FloatField()
+    y_mm = models.FloatField()
+    z_mm = models.FloatField()
+    reason = models.CharField(max_length=ADJUDICATION_REASON_MAX)
+    analysis_run = models.ForeignKey(
+        AnalysisRun, on_delete=models.PROTECT, related_name="adjudications"
+    )
+    client_event_id = models.UUIDField(unique=True)
+    created_at = models.DateTimeField()
+
+    objects = AdjudicationEventQuerySet.as_manager()
+
+    class Meta:
+        ordering = ["study", "case", "landmark", "created_at", "pk"]
+
+    def __str__(self) -> str:
+        return f"{self.decision} for {self.landmark.code} on {self.case.pseudonym}"
+
+    def save(self, *args, **kwargs) -> None:
+        if self.pk is not None:
+            raise PermissionError("adjudication events are append-only and cannot be changed")
+        super().save(*args, **kwargs)
+
+    def delete(self, *args, **kwargs):
+        raise PermissionError("adjudication events are append-only and cannot be deleted")
+
+
+class DetectorRun(models.Model):
+    """An automatic detector's uploaded points and their scores against the readers.
+
+    `predictions` holds the validated rows (case pseudonym, landmark, x/y/z world mm RAS+);
+    `tables` the detector and williams tables of the analysis core, stored like
+    AnalysisRun.tables.
+    """
+
+    code = models.UUIDField(default=uuid.uuid4, unique=True, editable=False)
+    study = models.ForeignKey(Study, on_delete=models.CASCADE, related_name="detector_runs")
+    name = models.CharField(max_length=100)
+    uploaded_by = models.ForeignKey(
+        settings.AUTH_USER_MODEL, on_delete=models.PROTECT, related_name="detector_runs"
+    )
+    uploaded_at = models.DateTimeField(auto_now_add=True)
+    file_name = models.CharField(max_length=200, blank=True)
+    n_rows = models.PositiveIntegerField(default=0)
+    predictions = models.JSONField(default=list)
+    status = models.CharField(max_length=16, choices=DetectorStatus)
+    reason = models.TextField(blank=True, help_text="Why scoring failed.")
+    analysis_input_digest = models.CharField(max_length=64, blank=True)
+    code_version = models.CharField(max_length=64, blank=True)
+    tables = models.JSONField(default=dict, blank=True)
+    summary = models.JSONField(default=dict, blank=True)
+
+    class Meta:
+        ordering = ["-uploaded_at", "-pk"]
+
+    def __str__(self) -> str:
+        return f"detector {self.name} on {self.study} ({self.status})"

@@ -11,7 +11,7 @@ from celery import shared_task
 from django.db import OperationalError
 
 from .models import Study
-from .services.analysis_runs import execute
+from .services.analysis_runs import STALE_AFTER, RunBusy, execute
 from .services.rebuild import rebuild_placements
 from .services.uploads import run_upload
 
@@ -29,6 +29,7 @@ def rebuild_placements_task(*, study_pk: int) -> int:
 
 
 @shared_task(
+    bind=True,
     name="studies.compute_analysis",
     acks_late=True,
     reject_on_worker_lost=True,
@@ -38,9 +39,18 @@ def rebuild_placements_task(*, study_pk: int) -> int:
     max_retries=3,
     default_retry_delay=10,
 )
-def compute_analysis(*, run_pk: int) -> str | None:
-    """Compute one analysis run (a duplicate or late message for a finished run does nothing)."""
-    run = execute(run_pk)
+def compute_analysis(self, *, run_pk: int) -> str | None:
+    """Compute one analysis run (a duplicate or late message for a finished run does nothing).
+
+    When another worker holds the run, check again after the stale period: if that worker
+    was killed, this delivery takes the run over and computes it from the start.
+    """
+    try:
+        run = execute(run_pk)
+    except RunBusy as busy:
+        raise self.retry(
+            exc=busy, countdown=STALE_AFTER.total_seconds() + 5, max_retries=10
+        ) from busy
     return run.status if run is not None else None
 
 

@@ -16,7 +16,7 @@ from studies.services import reads
 
 @login_required
 def home(request: HttpRequest) -> HttpResponse:
-    """Coordinators see their studies; readers see their worklist; one page for both roles."""
+    """One page for every role: coordinated studies, adjudication queues, reading worklists."""
     coordinated = studies_for(request.user, Role.COORDINATOR).annotate(
         n_cases=Count("cases", distinct=True),
         n_reads=Count("reads", distinct=True),
@@ -28,6 +28,7 @@ def home(request: HttpRequest) -> HttpResponse:
         "viewer/home.html",
         {
             "coordinated": coordinated,
+            "adjudicated": studies_for(request.user, Role.ADJUDICATOR),
             "worklists": [worklist_context(request.user, study) for study in reading],
         },
     )

@@ -146,3 +146,113 @@ def read_detail_dict(read: Read) -> ReadDetailDict:
 
 def study_dict(study: Study, roles: set[str]) -> StudyDict:
     return {"slug": study.slug, "name": study.name, "status": study.status, "roles": sorted(roles)}
+
+
+# ---- adjudication and review (studies.api.adjudication) ----------------------------------
+
+
+class ReaderPointDict(TypedDict):
+    read: str
+    reader: str
+    read_number: int
+    state: str
+    x_mm: float | None
+    y_mm: float | None
+    z_mm: float | None
+    confidence: int | None
+
+
+class DecisionDict(TypedDict):
+    decision: str
+    adjudicator: str
+    source_read: str | None
+    source_reader: str | None
+    x_mm: float
+    y_mm: float
+    z_mm: float
+    reason: str
+    analysis_run: str
+    created_at: str
+
+
+class QueueItemDict(TypedDict):
+    case: str
+    case_code: str
+    landmark: str
+    spread_mm: float | None
+    max_pairwise_mm: float | None
+    reasons: str
+    n_readers: int
+    n_absent: int
+    decision: DecisionDict | None
+    review_url: str
+
+
+def case_volume_dict(case, study_slug: str) -> VolumeDict:
+    """The volume header of a case for the review page (same shape as `volume_dict`)."""
+    def url(level: str) -> str:
+        return reverse("studies-review-volume",
+                       kwargs={"slug": study_slug, "case": case.code, "level": level})
+
+    return {
+        "shape": case.shape,
+        "spacing_mm": case.spacing_mm,
+        "affine": case.affine,
+        "dtype": case.dtype,
+        "layout": "i-fastest",
+        "byte_order": "little",
+        "bytes": case.viewer_bytes,
+        "window_center": case.window_center,
+        "window_width": case.window_width,
+        "value_min": case.value_min,
+        "value_max": case.value_max,
+        "modality": case.modality,
+        "url": url("full"),
+        "coarse_shape": case.coarse_shape,
+        "coarse_url": url("coarse"),
+    }
+
+
+def decision_dict(event) -> DecisionDict:
+    source = event.source_read
+    return {
+        "decision": event.decision,
+        "adjudicator": event.adjudicator.username,
+        "source_read": str(source.code) if source else None,
+        "source_reader": source.reader.username if source else None,
+        "x_mm": event.x_mm,
+        "y_mm": event.y_mm,
+        "z_mm": event.z_mm,
+        "reason": event.reason,
+        "analysis_run": str(event.analysis_run.code),
+        "created_at": event.created_at.isoformat(),
+    }
+
+
+def reader_point_dict(placement: Placement) -> ReaderPointDict:
+    return {
+        "read": str(placement.read.code),
+        "reader": placement.read.reader.username,
+        "read_number": placement.read.read_number,
+        "state": placement.state,
+        "x_mm": placement.x_mm,
+        "y_mm": placement.y_mm,
+        "z_mm": placement.z_mm,
+        "confidence": placement.confidence,
+    }
+
+
+def queue_item_dict(item, study_slug: str) -> QueueItemDict:
+    return {
+        "case": item.case,
+        "case_code": item.case_code,
+        "landmark": item.landmark,
+        "spread_mm": item.spread_mm,
+        "max_pairwise_mm": item.max_pairwise_mm,
+        "reasons": item.reasons,
+        "n_readers": item.n_readers,
+        "n_absent": item.n_absent,
+        "decision": decision_dict(item.decision) if item.decision else None,
+        "review_url": reverse("viewer-review", kwargs={
+            "slug": study_slug, "case": item.case_code, "landmark": item.landmark}),
+    }

@@ -106,11 +106,10 @@ class ReadActivity(APIView):
         responses={200: dict, **_ERRORS},
     )
     def post(self, request: Request, code: str) -> Response:
+        read = get_own_read(request.user, code)
         form = ActivitySerializer(data=request.data)
         form.is_valid(raise_exception=True)
-        read = reads.add_active_time(
-            get_own_read(request.user, code), request.user, form.validated_data["seconds"]
-        )
+        read = reads.add_active_time(read, request.user, form.validated_data["seconds"])
         return Response(payloads.read_dict(read))
 
 

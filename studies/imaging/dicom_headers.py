@@ -10,6 +10,7 @@ kept at all.
 from __future__ import annotations
 
 import math
+import struct
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -18,15 +19,23 @@ from pydicom import dcmread
 from pydicom.datadict import tag_for_keyword
 from pydicom.dataelem import RawDataElement
 from pydicom.dataset import Dataset
-from pydicom.errors import InvalidDicomError
+from pydicom.errors import BytesLengthException, InvalidDicomError
 
 from .deid import safe_acquisition
 from .errors import (
     EmptySourceError,
     GeometryError,
+    ImagingError,
     SeriesChoiceError,
     UnreadableFileError,
     UnsupportedImageError,
+)
+
+#: What pydicom raises on damaged headers, besides its own InvalidDicomError.
+_PARSE_ERRORS = (
+    InvalidDicomError, EOFError, OSError, ValueError, KeyError, TypeError, IndexError,
+    AttributeError, OverflowError, NotImplementedError, struct.error, UnicodeError,
+    BytesLengthException,
 )
 
 __all__ = [
@@ -299,13 +308,20 @@ def read_header(path: Path | str, seen_series: set[str] | None = None) -> FileHe
         Image position, orientation or pixel spacing missing or not finite numbers.
     """
     path = Path(path)
-    name = path.name
     try:
-        with open(path, "rb") as handle:
-            ds = dcmread(handle, stop_before_pixels=True)
-            offset = handle.tell()
-    except (InvalidDicomError, EOFError, OSError, ValueError, KeyError, TypeError) as exc:
-        raise UnreadableFileError(f"{name}: not a readable DICOM file ({exc})") from exc
+        return _read_header(path, seen_series)
+    except ImagingError:
+        raise
+    except _PARSE_ERRORS as exc:
+        # pydicom converts values lazily, so a damaged element can fail on first access.
+        raise UnreadableFileError(f"{path.name}: not a readable DICOM file ({exc})") from exc
+
+
+def _read_header(path: Path, seen_series: set[str] | None) -> FileHeader:
+    name = path.name
+    with open(path, "rb") as handle:
+        ds = dcmread(handle, stop_before_pixels=True)
+        offset = handle.tell()
     if _tag("Rows") not in ds or _tag("Columns") not in ds:
         sop = getattr(ds.get("SOPClassUID"), "name", "unknown SOP class")
         raise UnsupportedImageError(f"{name}: DICOM object without an image ({sop})")

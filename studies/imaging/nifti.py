@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import gzip
 import hashlib
+import math
 import zlib
 from pathlib import Path
 
@@ -108,6 +109,29 @@ def _check_spacing(path: Path, image: nib.Nifti1Image, affine: np.ndarray) -> No
         raise GeometryError(f"{name}: affine gives voxel spacing {spacing.tolist()} mm")
 
 
+#: Largest 3D volume accepted (voxels); also what a damaged header may claim before we load.
+MAX_VOXELS = 2**31
+
+
+def _check_declared_size(path: Path, image: nib.Nifti1Image, name: str) -> None:
+    """Refuse a header whose dimensions could not be in this file, before allocating them."""
+    shape = tuple(int(n) for n in image.shape)
+    voxels = math.prod(shape[:3])
+    if voxels > MAX_VOXELS:
+        raise UnsupportedImageError(
+            f"{name}: the header declares {shape[:3]} = {voxels} voxels per volume, more than "
+            f"the {MAX_VOXELS} accepted"
+        )
+    if path.suffix.lower() == ".gz":
+        return
+    declared = int(image.header["vox_offset"]) + math.prod(shape) * image.get_data_dtype().itemsize
+    actual = path.stat().st_size
+    if declared > actual:
+        raise UnreadableFileError(
+            f"{name}: truncated: the header declares {declared} bytes but the file has {actual}"
+        )
+
+
 def _pick_volume(shape: tuple[int, ...], volume_index: int | None, name: str) -> int | None:
     """Which 4th-axis index to read, or None for a 3D image."""
     extra = [n for n in shape[3:] if n != 1]
@@ -195,6 +219,7 @@ def read_nifti(path: Path | str, volume_index: int | None = None) -> Volume:
     affine, which, code = _choose_affine(image, name)
     _check_spacing(path, image, affine)
     index = _pick_volume(tuple(image.shape), volume_index, name)
+    _check_declared_size(path, image, name)
     data = _voxels(image, index, name)
     provenance = {
         "format": "NIfTI-2" if isinstance(image, nib.Nifti2Image) else "NIfTI-1",

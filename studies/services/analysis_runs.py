@@ -31,7 +31,11 @@ log = logging.getLogger(__name__)
 
 #: A run whose worker has not reported for this long may be taken over by a redelivery.
 STALE_AFTER = timedelta(minutes=2)
-PLACEMENT_COLUMNS = ["case", "landmark", "reader", "read", "x_mm", "y_mm", "z_mm", "absent", "placed_at"]
+#: progress_message prefix of a waiting run whose message could not reach the broker.
+DEFERRED = "deferred:"
+PLACEMENT_COLUMNS = [
+    "case", "landmark", "reader", "read", "x_mm", "y_mm", "z_mm", "absent", "placed_at",
+]
 
 
 def code_version() -> str:
@@ -80,6 +84,8 @@ def request_analysis(study: Study) -> AnalysisRun:
         Study.objects.select_for_update().filter(pk=study.pk).first()
         waiting = study.analysis_runs.filter(status=RunStatus.PENDING).first()
         if waiting is not None:
+            if waiting.progress_message.startswith(DEFERRED):
+                transaction.on_commit(lambda: enqueue(waiting.pk))
             return waiting
         parameters = parameters_of(study)
         version = code_version()
@@ -99,12 +105,22 @@ def enqueue(run_pk: int) -> bool:
 
     try:
         compute_analysis.delay(run_pk=run_pk)
-    except Exception as error:  # noqa: BLE001 - any broker failure must not break reading
+    except Exception as error:
         log.warning("analysis run %s deferred: broker unreachable (%s)", run_pk, error)
         AnalysisRun.objects.filter(pk=run_pk).update(
-            progress_message="deferred: the task queue is unreachable; it will be sent again")
+            progress_message=f"{DEFERRED} the task queue is unreachable; it will be sent again")
         return False
+    AnalysisRun.objects.filter(pk=run_pk, progress_message__startswith=DEFERRED).update(
+        progress_message="queued")
     return True
+
+
+def resend_deferred(study: Study) -> bool:
+    """Send again a waiting run whose message never reached the broker; True if sent now."""
+    waiting = study.analysis_runs.filter(
+        status=RunStatus.PENDING, progress_message__startswith=DEFERRED
+    ).first()
+    return waiting is not None and enqueue(waiting.pk)
 
 
 def claim(run_pk: int) -> bool:
@@ -140,10 +156,21 @@ def frame_of(stored: dict) -> pd.DataFrame:
     return pd.DataFrame(stored["data"], columns=stored["columns"])
 
 
+class RunBusy(Exception):
+    """The run is being computed by a worker that still reports; try again later."""
+
+
 def execute(run_pk: int) -> AnalysisRun | None:
-    """Compute a claimed run and store its tables; expected failures are stored, not raised."""
+    """Compute a claimed run and store its tables; expected failures are stored, not raised.
+
+    Returns None when the run is finished or gone (a duplicate message). Raises RunBusy
+    when another worker holds it with a fresh heartbeat: that worker may have been killed
+    (its message then comes back here), so the caller retries after the stale period.
+    """
     if not claim(run_pk):
-        log.info("analysis run %s is not waiting (done, or running elsewhere)", run_pk)
+        if AnalysisRun.objects.filter(pk=run_pk, status=RunStatus.RUNNING).exists():
+            raise RunBusy(f"analysis run {run_pk} is running elsewhere")
+        log.info("analysis run %s is finished or gone; nothing to do", run_pk)
         return None
     run = AnalysisRun.objects.select_related("study").get(pk=run_pk)
 

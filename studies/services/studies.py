@@ -7,6 +7,9 @@ from collections.abc import Sequence
 from django.db import transaction
 from django.utils import timezone
 
+from audit import log as audit
+from audit.models import AuditKind
+
 from ..constants import Role, StudyStatus
 from ..models import Landmark, Membership, Study
 from .errors import ServiceError
@@ -49,6 +52,10 @@ def create_study(*, name: str, slug: str, coordinator, description: str = "", **
         raise ServiceError(f"a study with the short name {slug!r} already exists")
     study = Study.objects.create(name=name, slug=slug, description=description, **design)
     Membership.objects.create(user=coordinator, study=study, role=Role.COORDINATOR)
+    audit.record(
+        AuditKind.ROLE_ADDED, actor=coordinator, study=study, subject=coordinator,
+        role=Role.COORDINATOR,
+    )
     return study
 
 
@@ -64,6 +71,18 @@ def update_design(study: Study, **design) -> Study:
     for field, value in design.items():
         setattr(study, field, value)
     study.save()
+    return study
+
+
+@transaction.atomic
+def update_details(study: Study, *, name: str, description: str = "") -> Study:
+    """Change a study's name and description (allowed in any status)."""
+    name = name.strip()
+    if not name:
+        raise ServiceError("a study needs a name")
+    study.name = name
+    study.description = description
+    study.save(update_fields=["name", "description"])
     return study
 
 
@@ -108,11 +127,24 @@ def set_protocol(study: Study, landmarks: Sequence[dict]) -> list[Landmark]:
 
 
 @transaction.atomic
-def add_member(study: Study, user, role: str) -> Membership:
-    """Give a user a role; adding a reader to an open study extends its design."""
+def add_member(study: Study, user, role: str, by=None) -> Membership:
+    """Give a user a role; adding a reader to an open study extends its design.
+
+    `by` is the user making the change, for the audit log (None: a command or the demo).
+    """
     if role not in Role.values:
         raise ServiceError(f"unknown role {role!r}; use one of {', '.join(Role.values)}")
-    membership, _ = Membership.objects.get_or_create(user=user, study=study, role=role)
+    held = set(study.memberships.filter(user=user).values_list("role", flat=True))
+    other = (held - {Role.READER}) if role == Role.READER else (held & {Role.READER})
+    if other:
+        # A reader who also coordinates or adjudicates would see other readers' points.
+        raise ServiceError(
+            f"{user.get_username()!r} is already {sorted(other)[0]} in this study and cannot "
+            f"also be {role}: readers must stay blinded"
+        )
+    membership, created = Membership.objects.get_or_create(user=user, study=study, role=role)
+    if created:
+        audit.record(AuditKind.ROLE_ADDED, actor=by, study=study, subject=user, role=role)
     if role == Role.READER and study.status == StudyStatus.OPEN:
         from .reads import sync_reads
 

@@ -23,18 +23,18 @@ def free_port() -> int:
 
 def answers(url: str) -> bool:
     try:
-        with urllib.request.urlopen(url, timeout=2) as response:  # noqa: S310 - loopback only
+        with urllib.request.urlopen(url, timeout=2) as response:
             return response.status == 200
     except OSError:
         return False
 
 
 @pytest.mark.slow
-def test_it_serves_the_demo_and_stops_web_server_and_worker_on_ctrl_c(tmp_path) -> None:  # noqa: ANN001
+def test_it_serves_the_demo_and_stops_web_server_and_worker_on_ctrl_c(tmp_path) -> None:
     stack = Stack(tmp_path, f"sqlite:///{tmp_path / 'demo.sqlite3'}", "filesystem://")
     stack.manage("migrate", "--noinput")
     port = free_port()
-    log = open(tmp_path / "demo.log", "w")  # noqa: SIM115 - closed below
+    log = open(tmp_path / "demo.log", "w")
     demo = subprocess.Popen([sys.executable, "manage.py", "demo", "--address", f"127.0.0.1:{port}"],
                             cwd=ROOT, env=stack.env, stdout=log, stderr=subprocess.STDOUT)
     try:

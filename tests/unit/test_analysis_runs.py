@@ -19,7 +19,7 @@ from studies.models import AnalysisRun
 from studies.services import analysis_runs, placing, reads, studies
 
 
-def submit_all(study, user, offset_vox=(0.0, 0.0, 0.0), absent_b=True) -> None:  # noqa: ANN001
+def submit_all(study, user, offset_vox=(0.0, 0.0, 0.0), absent_b=True) -> None:
     for read in study.reads.filter(reader=user).order_by("worklist_position"):
         affine = np.array(read.case.affine)
         xyz = voxel_to_world(affine, np.array([5.0, 6.0, 4.0]) + np.array(offset_vox))
@@ -37,7 +37,7 @@ def submit_all(study, user, offset_vox=(0.0, 0.0, 0.0), absent_b=True) -> None: 
 
 
 @pytest.fixture
-def analysed_study(open_study, cast):  # noqa: ANN001, ANN201
+def analysed_study(open_study, cast):
     submit_all(open_study, cast["reader_a"])
     submit_all(open_study, cast["reader_b"], offset_vox=(0.5, -0.25, 0.5), absent_b=False)
     return open_study
@@ -90,9 +90,33 @@ def test_a_run_killed_half_way_and_rerun_equals_a_clean_run(analysed_study) -> N
 
 
 def test_a_running_run_is_not_taken_over_while_its_worker_reports(analysed_study) -> None:
+    """The delivery is told to come back later (the task retries after the stale period)."""
     live = AnalysisRun.objects.create(study=analysed_study, status=RunStatus.RUNNING,
                                       heartbeat_at=timezone.now())
-    assert analysis_runs.execute(live.pk) is None
+    with pytest.raises(analysis_runs.RunBusy):
+        analysis_runs.execute(live.pk)
+    assert AnalysisRun.objects.get(pk=live.pk).status == RunStatus.RUNNING
+
+
+def test_a_run_deferred_while_the_broker_was_down_is_sent_again(analysed_study, monkeypatch):
+    from studies import tasks
+
+    sent = []
+
+    def broker_down(**kwargs):
+        raise ConnectionError("broker unreachable")
+
+    monkeypatch.setattr(tasks.compute_analysis, "delay", broker_down)
+    run = analysis_runs.request_analysis(analysed_study)
+    assert not analysis_runs.enqueue(run.pk)
+    run.refresh_from_db()
+    assert run.status == RunStatus.PENDING and run.progress_message.startswith("deferred:")
+    monkeypatch.setattr(tasks.compute_analysis, "delay", lambda **kwargs: sent.append(kwargs))
+    assert analysis_runs.resend_deferred(analysed_study)
+    assert sent == [{"run_pk": run.pk}]
+    run.refresh_from_db()
+    assert run.progress_message == "queued"
+    assert not analysis_runs.resend_deferred(analysed_study)
 
 
 def test_it_marks_a_study_too_small_to_analyse_as_failed_with_the_reason(open_study, cast) -> None:

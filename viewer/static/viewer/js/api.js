@@ -23,12 +23,12 @@ export function csrfToken() {
   return match ? decodeURIComponent(match[1]) : "";
 }
 
-/** GET a JSON resource; throws ApiError with the server's message on failure. */
+/**
+ * GET a JSON resource; throws ApiError with the server's message on failure. No custom
+ * headers, so a <link rel=preload as=fetch> of the same URL can be reused.
+ */
 export async function getJson(url) {
-  const response = await fetch(url, {
-    credentials: "same-origin",
-    headers: { Accept: "application/json" },
-  });
+  const response = await fetch(url, { credentials: "same-origin" });
   const data = await response.json().catch(() => ({}));
   if (!response.ok) throw new ApiError(response.status, data.error || `HTTP ${response.status}`);
   return data;
@@ -51,7 +51,7 @@ export async function postJson(url, body, { keepalive = false } = {}) {
   return { status: response.status, data };
 }
 
-const RETRY_MS = [500, 1000, 2000, 4000, 8000];
+const RETRY_MS = [500, 1000, 2000, 3000, 5000];
 
 /**
  * The ordered, persistent queue of placement events for one read.
@@ -72,7 +72,10 @@ export class EventQueue {
     this.timer = null;
     this.stopped = false;
     this.latencies = [];
-    window.addEventListener("online", () => this.flush());
+    window.addEventListener("online", () => {
+      this.failures = 0; // the network says it is back: retry now, not after the backoff
+      this.flush();
+    });
   }
 
   /** Events left in localStorage by an earlier page of this read (oldest first). */
@@ -120,6 +123,7 @@ export class EventQueue {
       this.timer = null;
     }
     this.sending = true;
+    let refused = false;
     try {
       while (this.pending.length && !this.stopped) {
         this.report(this.failures ? "offline" : "saving");
@@ -132,8 +136,9 @@ export class EventQueue {
           return;
         }
         this.failures = 0;
+        if (outcome === "refused") refused = true;
       }
-      if (!this.stopped) this.report("saved");
+      if (!this.stopped) this.report(refused ? "refused" : "saved");
     } finally {
       this.sending = false;
     }
@@ -171,7 +176,7 @@ export class EventQueue {
       this.persist();
       this.report("refused");
       if (this.hooks.onRefused) this.hooks.onRefused(event, data.error || `HTTP ${status}`);
-      return "done";
+      return "refused";
     }
     return "retry"; // 5xx or a proxy error page: the server did not take it; try again.
   }
@@ -181,7 +186,7 @@ export class EventQueue {
     const start = performance.now();
     while ((this.pending.length || this.sending) && !this.stopped) {
       if (performance.now() - start > timeoutMs) return false;
-      await new Promise((r) => setTimeout(r, 50));
+      await new Promise((r) => setTimeout(r, 5));
     }
     return !this.pending.length;
   }

@@ -3,7 +3,7 @@
 // viewer actions. Screen <-> slice <-> voxel mapping lives in coords.js.
 
 import { PLANES, niceLength, paneTransform, planeLetters, sliceToVoxel, voxelToSlice, voxelToWorld } from "./coords.js";
-import { SliceImage } from "./render.js";
+import { PaneRaster } from "./render.js";
 
 const HIT_PX = 9;
 const FAINT_MM = 4; // markers within this distance of the slice are drawn faint
@@ -19,8 +19,8 @@ export class Pane {
     this.overlayCanvas = el.querySelector("canvas.pane-overlay");
     this.caption = el.querySelector(".pane-caption");
     this.ictx = this.imageCanvas.getContext("2d", { alpha: false });
+    this.raster = new PaneRaster(this.ictx);
     this.octx = this.overlayCanvas.getContext("2d");
-    this.slice = new SliceImage();
     this.zoom = 1;
     this.centre = null; // slice coordinates at the pane centre; null = middle of the slice
     this.size = { width: 1, height: 1 };
@@ -50,10 +50,10 @@ export class Pane {
   }
 
   resize() {
-    const rect = this.el.getBoundingClientRect();
+    // The canvases fill the pane inside its border (clientWidth/Height: whole CSS px).
     const dpr = window.devicePixelRatio || 1;
-    const width = Math.max(1, Math.floor(rect.width));
-    const height = Math.max(1, Math.floor(rect.height));
+    const width = Math.max(1, this.el.clientWidth);
+    const height = Math.max(1, this.el.clientHeight);
     if (width === this.size.width && height === this.size.height && dpr === this.dpr) return false;
     this.size = { width, height };
     this.dpr = dpr;
@@ -66,35 +66,20 @@ export class Pane {
     return true;
   }
 
-  /** Draw the slice image: re-extract only when slice, window or volume changed. */
+  /** Draw the slice picture (skipped when slice, window and view are unchanged). */
   drawImage() {
     const v = this.viewer;
     const source = v.full || v.coarse;
-    const ctx = this.ictx;
-    ctx.setTransform(this.dpr, 0, 0, this.dpr, 0, 0);
-    ctx.fillStyle = "#101214";
-    ctx.fillRect(0, 0, this.size.width, this.size.height);
-    if (!source) return false;
+    if (!source) {
+      this.ictx.fillStyle = "#101214";
+      this.ictx.fillRect(0, 0, this.imageCanvas.width, this.imageCanvas.height);
+      return false;
+    }
     const g = this.geometry();
-    const depth = Math.min(source.shape[this.p.normal] - 1, Math.round(this.depth() / source.scale));
-    this.slice.update(source, this.plane, depth, v.window, v.table);
-    let rect = g.rect;
-    if (source.scale !== 1) rect = this.coarseRect(g, source);
-    ctx.imageSmoothingEnabled = v.smooth;
-    ctx.drawImage(this.slice.canvas, rect.x, rect.y, rect.width, rect.height);
+    const key = `${this.zoom}|${g.centre[0]}|${g.centre[1]}`;
+    this.raster.draw(source, v.shape, this.plane, this.depth(), v.window, v.table, g.t,
+      this.size, this.dpr, key);
     return true;
-  }
-
-  /** Where a coarse slice lands: coarse voxel a sits on canonical voxel 2a. */
-  coarseRect(g, source) {
-    const n = this.viewer.shape;
-    const wc = source.shape[this.p.uAxis];
-    const hc = source.shape[this.p.vAxis];
-    const uOff = n[this.p.uAxis] + 1 - 2 * wc;
-    const vOff = n[this.p.vAxis] + 1 - 2 * hc;
-    const [x0, y0] = g.t.toScreen(uOff - 1, vOff - 1);
-    const [x1, y1] = g.t.toScreen(uOff + 2 * wc - 1, vOff + 2 * hc - 1);
-    return { x: x0, y: y0, width: x1 - x0, height: y1 - y0 };
   }
 
   /** Markers of placed landmarks near this slice: [{code, x, y, full, distanceMm}]. */
@@ -216,7 +201,7 @@ export class Pane {
     const spots = [
       [letters.left, 12, height / 2],
       [letters.right, width - 12, height / 2],
-      [letters.top, width / 2, 12],
+      [letters.top, width / 2, 30], // below the caption line
       [letters.bottom, width / 2, height - 12],
     ];
     for (const [text, x, y] of spots) {
@@ -292,6 +277,7 @@ export class Pane {
     el.addEventListener("pointermove", (e) => this.onMove(e));
     el.addEventListener("pointerup", (e) => this.onUp(e));
     el.addEventListener("pointercancel", () => {
+      if (this.drag && this.drag.kind === "marker") this.viewer.cancelMarker(this.drag.code);
       this.drag = null;
     });
     el.addEventListener("pointerleave", () => this.viewer.hover(null));
@@ -374,7 +360,7 @@ export class Pane {
       if (ijk) this.viewer.placeActive(ijk);
     } else if (d.kind === "marker") {
       if (d.moved && d.ijk) this.viewer.commitMarker(d.code, d.ijk);
-      else this.viewer.changed({ overlay: true });
+      else this.viewer.cancelMarker(d.code);
     }
   }
 

@@ -50,6 +50,11 @@ async function start() {
     return;
   }
   performance.mark("viewer:header");
+  // Start reading the coarse volume (already requested by the page's preload link) before
+  // building the page, so the network and the page setup overlap.
+  const coarseCount = detail.volume.coarse_shape.reduce((a, b) => a * b, 1);
+  const coarsePromise = fetchVoxels(detail.volume.coarse_url, detail.volume.dtype, coarseCount);
+  coarsePromise.catch(() => {}); // reported where it is awaited
   const locked = detail.status === "submitted";
   const page = { detail, viewer: null, book: null, queue: null, clock: null };
   window.cairnRead = page;
@@ -107,10 +112,10 @@ async function start() {
     });
   }
   announceOtherTabs(detail.code);
-  await loadVolumes(viewer, detail.volume);
+  await loadVolumes(viewer, detail.volume, coarsePromise);
 }
 
-async function loadVolumes(viewer, header) {
+async function loadVolumes(viewer, header, coarsePromise) {
   const progress = $("#rd-progress");
   const text = $("#rd-load-text");
   viewer.onFirstImage = () => {
@@ -118,9 +123,8 @@ async function loadVolumes(viewer, header) {
     requestAnimationFrame(() => performance.mark("viewer:first-frame"));
   };
   try {
-    const coarseCount = header.coarse_shape.reduce((a, b) => a * b, 1);
     const fullCount = header.shape.reduce((a, b) => a * b, 1);
-    const coarse = await fetchVoxels(header.coarse_url, header.dtype, coarseCount);
+    const coarse = await coarsePromise;
     performance.mark("viewer:coarse-ready");
     viewer.setVolume("coarse", new Volume(coarse, header.coarse_shape, 2));
     text.textContent = "Preview; loading full resolution…";

@@ -37,7 +37,6 @@ export class Viewer {
     this.cursor = this.shape.map((n) => Math.round((n - 1) / 2));
     this.full = null;
     this.coarse = null;
-    this.smooth = false;
     this.showCrosshair = true;
     this.clickMode = "place";
     this.presets = this.makePresets();
@@ -61,7 +60,8 @@ export class Viewer {
     this.onWindowChange = () => {};
     this.onModeChange = () => {};
     this.onLayoutChange = () => {};
-    new ResizeObserver(() => this.layoutChanged()).observe(this.stage);
+    const observer = new ResizeObserver(() => this.layoutChanged());
+    for (const plane of PANE_ORDER) observer.observe(this.panes[plane].el);
     this.layoutChanged();
   }
 
@@ -141,6 +141,7 @@ export class Viewer {
     }
     if (this.pendingAuto) this.applyPreset(this.presets[this.presetIndex]);
     this.changed({ images: true, panel: true });
+    this.onCursor();
   }
 
   setWindow(win, redraw = true) {
@@ -239,8 +240,16 @@ export class Viewer {
   previewMarker(code, ijk) {
     const p = this.book.get(code);
     if (!p) return;
-    this.preview = { code, before: p };
+    // Keep the position from before the drag, not the last preview.
+    if (!this.preview || this.preview.code !== code) this.preview = { code, before: p };
     this.book.placements.set(code, { ...p, xyz: this.toWorld(ijk) });
+    this.changed({ overlay: true });
+  }
+
+  /** A marker drag was cancelled: put the marker back where it was. */
+  cancelMarker(code) {
+    if (this.preview && this.preview.code === code) this.book.placements.set(code, this.preview.before);
+    this.preview = null;
     this.changed({ overlay: true });
   }
 
