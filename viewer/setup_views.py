@@ -240,7 +240,7 @@ def study_members(request: HttpRequest, slug: str) -> HttpResponse:
     if request.method == "POST" and form.is_valid():
         user, role = form.cleaned_data["username"], form.cleaned_data["role"]
         try:
-            study_services.add_member(study, user, role)
+            study_services.add_member(study, user, role, by=request.user)
         except ServiceError as error:
             _refused(form, error)
         else:

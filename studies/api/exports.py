@@ -13,6 +13,9 @@ from rest_framework.request import Request
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
+from audit import log as audit
+from audit.models import AuditKind
+
 from ..access import get_study
 from ..constants import Role
 from ..services import analysis_runs, exports, predictions
@@ -27,7 +30,15 @@ _ERRORS = {
 _CSV = "text/csv; charset=utf-8"
 
 
-def _download(data: bytes, content_type: str, name: str) -> HttpResponse:
+def _download(
+    request: Request,
+    study,
+    data: bytes,
+    content_type: str,
+    name: str,
+) -> HttpResponse:
+    """An attachment download, recorded in the audit log as an export."""
+    audit.record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
     response = HttpResponse(data, content_type=content_type)
     response["Content-Disposition"] = f'attachment; filename="{name}"'
     response["Cache-Control"] = "no-store"
@@ -47,11 +58,15 @@ class ReferenceSetExport(APIView):
         table = exports.reference_set(study, run)
         if fmt == "csv":
             return _download(
+                request,
+                study,
                 table.to_csv(index=False, lineterminator="\n").encode(),
                 _CSV,
                 f"{slug}-reference_set.csv",
             )
         return _download(
+            request,
+            study,
             exports.reference_json(study, run, table),
             "application/json",
             f"{slug}-reference_set.json",
@@ -71,7 +86,11 @@ class EventsExport(APIView):
         else:
             table, stem = exports.events_table(study), "events"
         return _download(
-            table.to_csv(index=False, lineterminator="\n").encode(), _CSV, f"{slug}-{stem}.csv"
+            request,
+            study,
+            table.to_csv(index=False, lineterminator="\n").encode(),
+            _CSV,
+            f"{slug}-{stem}.csv",
         )
 
 
@@ -87,7 +106,11 @@ class AnalysisTableExport(APIView):
             raise Http404(f"no table {name!r}; this run has {', '.join(run.tables)}")
         table = analysis_runs.frame_of(run.tables[name])
         return _download(
-            table.to_csv(index=False, lineterminator="\n").encode(), _CSV, f"{slug}-{name}.csv"
+            request,
+            study,
+            table.to_csv(index=False, lineterminator="\n").encode(),
+            _CSV,
+            f"{slug}-{name}.csv",
         )
 
 
@@ -99,7 +122,9 @@ class ArchiveExport(APIView):
     )
     def get(self, request: Request, slug: str) -> HttpResponse:
         study = get_study(request.user, slug, (Role.COORDINATOR,))
-        return _download(exports.archive_bytes(study), "application/zip", f"{slug}-archive.zip")
+        return _download(
+            request, study, exports.archive_bytes(study), "application/zip", f"{slug}-archive.zip"
+        )
 
 
 class PredictionsUploadSerializer(serializers.Serializer):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import TypedDict
 
 from django.urls import reverse
@@ -109,9 +110,8 @@ def read_dict(read: Read) -> ReadDict:
     }
 
 
-def volume_dict(read: Read) -> VolumeDict:
-    """The volume header: geometry and display hints only, nothing identifying."""
-    case = read.case
+def _volume_header(case, url: Callable[[str], str]) -> VolumeDict:
+    """Geometry and display hints only, nothing identifying; `url(level)` locates the voxels."""
     return {
         "shape": case.shape,
         "spacing_mm": case.spacing_mm,
@@ -125,10 +125,18 @@ def volume_dict(read: Read) -> VolumeDict:
         "value_min": case.value_min,
         "value_max": case.value_max,
         "modality": case.modality,
-        "url": reverse("studies-read-volume", kwargs={"code": read.code, "level": "full"}),
+        "url": url("full"),
         "coarse_shape": case.coarse_shape,
-        "coarse_url": reverse("studies-read-volume", kwargs={"code": read.code, "level": "coarse"}),
+        "coarse_url": url("coarse"),
     }
+
+
+def volume_dict(read: Read) -> VolumeDict:
+    """The volume header of a reader's read (voxels reached through the read's own URL)."""
+    return _volume_header(
+        read.case,
+        lambda level: reverse("studies-read-volume", kwargs={"code": read.code, "level": level}),
+    )
 
 
 def read_detail_dict(read: Read) -> ReadDetailDict:
@@ -190,27 +198,12 @@ class QueueItemDict(TypedDict):
 
 def case_volume_dict(case, study_slug: str) -> VolumeDict:
     """The volume header of a case for the review page (same shape as `volume_dict`)."""
-    def url(level: str) -> str:
-        return reverse("studies-review-volume",
-                       kwargs={"slug": study_slug, "case": case.code, "level": level})
-
-    return {
-        "shape": case.shape,
-        "spacing_mm": case.spacing_mm,
-        "affine": case.affine,
-        "dtype": case.dtype,
-        "layout": "i-fastest",
-        "byte_order": "little",
-        "bytes": case.viewer_bytes,
-        "window_center": case.window_center,
-        "window_width": case.window_width,
-        "value_min": case.value_min,
-        "value_max": case.value_max,
-        "modality": case.modality,
-        "url": url("full"),
-        "coarse_shape": case.coarse_shape,
-        "coarse_url": url("coarse"),
-    }
+    return _volume_header(
+        case,
+        lambda level: reverse(
+            "studies-review-volume", kwargs={"slug": study_slug, "case": case.code, "level": level}
+        ),
+    )
 
 
 def decision_dict(event) -> DecisionDict:

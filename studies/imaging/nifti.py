@@ -31,6 +31,7 @@ _READ_ERRORS = (
     nib.filebasedimages.ImageFileError,
     nib.spatialimages.HeaderDataError,
     EOFError,
+    OverflowError,
     OSError,
     zlib.error,
     gzip.BadGzipFile,

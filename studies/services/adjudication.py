@@ -21,16 +21,15 @@ from django.utils import timezone
 from ..constants import (
     ADJUDICATED_METHOD,
     ADJUDICATION_REASON_MAX,
-    VOLUME_MARGIN_VOXELS,
     AdjudicationDecision,
     PlacementState,
     ReadStatus,
     RunStatus,
 )
-from ..imaging.geometry import world_to_voxel
 from ..models import AdjudicationEvent, AnalysisRun, Case, Landmark, Placement, Read, Study
 from .analysis_runs import frame_of
 from .errors import ConflictError, ServiceError
+from .placing import point_in_case
 
 COV_COLUMNS = ("cov_xx", "cov_xy", "cov_xz", "cov_yy", "cov_yz", "cov_zz")
 
@@ -170,21 +169,6 @@ def review_landmark(case: Case, code: str) -> Landmark:
     return landmark
 
 
-def _check_point(case: Case, xyz: tuple) -> tuple[float, float, float]:
-    if any(v is None for v in xyz):
-        raise ServiceError("a new point needs x_mm, y_mm and z_mm")
-    if not all(isinstance(v, int | float) and math.isfinite(v) for v in xyz):
-        raise ServiceError(f"coordinates must be finite numbers, got {list(xyz)}")
-    ijk = world_to_voxel(np.array(case.affine), np.array(xyz, dtype=np.float64))
-    shape = np.array(case.shape)
-    if np.any(ijk < -VOLUME_MARGIN_VOXELS) or np.any(ijk > shape - 1 + VOLUME_MARGIN_VOXELS):
-        raise ServiceError(
-            f"point {list(xyz)} mm is outside the volume (voxel {np.round(ijk, 2).tolist()}, "
-            f"shape {shape.tolist()})"
-        )
-    return float(xyz[0]), float(xyz[1]), float(xyz[2])
-
-
 def _decided_point(
     case: Case, landmark: Landmark, run: AnalysisRun, data: DecisionInput
 ) -> tuple[tuple[float, float, float], Read | None]:
@@ -209,7 +193,7 @@ def _decided_point(
         if placement is None or placement.state != PlacementState.PLACED:
             raise ServiceError(f"read {data.source_read} has no point for {landmark.code}")
         return (placement.x_mm, placement.y_mm, placement.z_mm), read
-    return _check_point(case, (data.x_mm, data.y_mm, data.z_mm)), None
+    return point_in_case(case, (data.x_mm, data.y_mm, data.z_mm), "a new point")[0], None
 
 
 def _check_input(

@@ -30,7 +30,7 @@ from ..models import AnalysisRun, Placement, Study
 log = logging.getLogger(__name__)
 
 #: A run whose worker has not reported for this long may be taken over by a redelivery.
-STALE_AFTER = timedelta(minutes=2)
+STALE_AFTER = timedelta(minutes=1)
 #: progress_message prefix of a waiting run whose message could not reach the broker.
 DEFERRED = "deferred:"
 PLACEMENT_COLUMNS = [
@@ -113,6 +113,14 @@ def enqueue(run_pk: int) -> bool:
     AnalysisRun.objects.filter(pk=run_pk, progress_message__startswith=DEFERRED).update(
         progress_message="queued")
     return True
+
+
+def resend_all_deferred() -> int:
+    """Send again every waiting run whose message never reached the broker; return how many."""
+    waiting = AnalysisRun.objects.filter(
+        status=RunStatus.PENDING, progress_message__startswith=DEFERRED
+    ).values_list("pk", flat=True)
+    return sum(enqueue(pk) for pk in list(waiting))
 
 
 def resend_deferred(study: Study) -> bool:

@@ -18,7 +18,7 @@ from django.utils import timezone
 
 from ..constants import CONFIDENCE_RANGE, VOLUME_MARGIN_VOXELS, EventKind, PlacementState
 from ..imaging.geometry import world_to_voxel
-from ..models import Landmark, Placement, PlacementEvent, Read
+from ..models import Case, Landmark, Placement, PlacementEvent, Read
 from .errors import ConflictError, ServiceError
 from .reads import _writable
 
@@ -86,14 +86,18 @@ def snapshot_of(placement: Placement | None) -> PlacementSnapshot | None:
     )
 
 
-def _check_point(read: Read, data: EventInput) -> tuple[tuple[float, ...], tuple[float, ...]]:
-    xyz = (data.x_mm, data.y_mm, data.z_mm)
+def point_in_case(case: Case, xyz: tuple, what: str) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """Check a world point (mm, RAS+) lies in the case's volume; return (xyz, canonical ijk).
+
+    The one check used for readers' placements and adjudicators' new points: finite
+    coordinates, inside the volume up to half a voxel beyond the outermost voxel centres.
+    """
     if any(v is None for v in xyz):
-        raise ServiceError(f"a {data.kind} event needs x_mm, y_mm and z_mm")
+        raise ServiceError(f"{what} needs x_mm, y_mm and z_mm")
     if not all(isinstance(v, int | float) and math.isfinite(v) for v in xyz):
         raise ServiceError(f"coordinates must be finite numbers, got {list(xyz)}")
-    ijk = world_to_voxel(np.array(read.case.affine), np.array(xyz, dtype=np.float64))
-    shape = np.array(read.case.shape)
+    ijk = world_to_voxel(np.array(case.affine), np.array(xyz, dtype=np.float64))
+    shape = np.array(case.shape)
     low, high = -VOLUME_MARGIN_VOXELS, shape - 1 + VOLUME_MARGIN_VOXELS
     if np.any(ijk < low) or np.any(ijk > high):
         raise ServiceError(
@@ -166,7 +170,8 @@ def _record(read: Read, user, data: EventInput) -> tuple[PlacementEvent, bool]:
     _check_kind(read, landmark, data)
     xyz = ijk = (None, None, None)
     if data.kind in (EventKind.PLACED, EventKind.MOVED):
-        xyz, ijk = _check_point(read, data)
+        xyz, ijk = point_in_case(read.case, (data.x_mm, data.y_mm, data.z_mm),
+                                 f"a {data.kind} event")
     read.version += 1
     if read.opened_at is None:
         read.opened_at = timezone.now()

@@ -155,3 +155,17 @@ def test_the_stored_tables_round_trip_as_frames(analysed_study) -> None:
     run = analysis_runs.execute(analysis_runs.request_analysis(analysed_study).pk)
     frame = analysis_runs.frame_of(run.tables["agreement_by_landmark"])
     assert isinstance(frame, pd.DataFrame) and set(frame["landmark"]) == {"A", "B"}
+
+
+def test_a_worker_connecting_sends_every_deferred_run(analysed_study, monkeypatch) -> None:
+    """The consumer step in cairn/celery.py calls resend_all_deferred on each (re)connection."""
+    from cairn.celery import ResendDeferredRuns, app
+    from studies import tasks
+
+    run = analysis_runs.request_analysis(analysed_study)
+    AnalysisRun.objects.filter(pk=run.pk).update(progress_message="deferred: broker down")
+    sent = []
+    monkeypatch.setattr(tasks.compute_analysis, "delay", lambda **kwargs: sent.append(kwargs))
+    assert ResendDeferredRuns in app.steps["consumer"]
+    ResendDeferredRuns(parent=None).start(consumer=None)
+    assert sent == [{"run_pk": run.pk}]

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from django.core.management.base import BaseCommand, CommandError
 
+from audit import log as audit
+from audit.models import AuditKind
 from studies.models import Study
 from studies.services import exports
 from studies.services.errors import ServiceError
@@ -36,4 +38,6 @@ class Command(BaseCommand):
             raise CommandError(str(error)) from None
         except OSError as error:
             raise CommandError(f"cannot write to {options['out']!r}: {error}") from None
+        audit.record(AuditKind.EXPORT, username="(command line)", study=study,
+                     folder=str(options["out"]), files=names)
         self.stdout.write(f"wrote {len(names)} files to {options['out']}: {', '.join(names)}")
