@@ -8,6 +8,7 @@ queue (requests made meanwhile fold into it).
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import logging
@@ -38,8 +39,12 @@ PLACEMENT_COLUMNS = [
 ]
 
 
+@functools.cache
 def code_version() -> str:
-    """cairn's version plus a hash of the analysis core's source, so code changes rerun."""
+    """cairn's version plus a hash of the analysis core's source, so code changes rerun.
+
+    Computed once per process: the sources do not change while it runs.
+    """
     import cairn
 
     digest = hashlib.sha256()
