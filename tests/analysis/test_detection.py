@@ -1,6 +1,6 @@
 """Tests for studies.analysis.detection: MRE/SDR summaries and the Williams index.
 
-Expected values: /work/shared/check-values.md section 7 (toy error vector,
+Expected values: the shared check-values notes section 7 (toy error vector,
 computed) and section 5 (three Williams index worked examples, computed from
 the Chalana & Kim 1997 disagreement form with the jackknife over cases).
 """

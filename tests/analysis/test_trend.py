@@ -1,6 +1,6 @@
 """Tests for studies.analysis.trend: Mann-Kendall, tabular CUSUM, OLS slope.
 
-Reference values come from /work/shared/check-values.md section 8 (EPA QA/G-9S
+Reference values come from the shared check-values notes section 8 (EPA QA/G-9S
 example, Montgomery Example 9.1) and from reference libraries pinned in
 requirements.in: pymannkendall 1.4.3, scipy 1.17.1, statsmodels 0.15.0.
 """
