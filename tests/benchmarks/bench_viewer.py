@@ -40,17 +40,10 @@ from pathlib import Path
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
-CHROMIUM_ARGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-]
-VIEWPORT = {"width": 1400, "height": 860}
+sys.path.insert(0, str(ROOT))  # run as a script: make `tests` importable
+
+from tests.browser.chromium import CHROMIUM_ARGS, VIEWPORT  # noqa: E402
+
 RUNS_256 = 5
 RUNS_512 = 3
 

@@ -6,7 +6,6 @@ the test data directory; each test gets fresh database rows pointing at those fi
 
 from __future__ import annotations
 
-import shutil
 import time
 import uuid
 from pathlib import Path
@@ -15,20 +14,9 @@ import nibabel as nib
 import numpy as np
 import pytest
 
+from tests.browser.chromium import CHROMIUM, CHROMIUM_ARGS, VIEWPORT
 from tests.conftest import require_service
 
-CHROMIUM = shutil.which("chromium")
-CHROMIUM_ARGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-]
-VIEWPORT = {"width": 1400, "height": 860}
 PHANTOM_SEED = 4711
 PHANTOM_SPACING_MM = (1.5, 1.5, 2.5)  # anisotropic on purpose
 
