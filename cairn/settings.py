@@ -195,6 +195,9 @@ CELERY_BROKER_URL, CELERY_BROKER_TRANSPORT_OPTIONS = broker_settings(
     envsecret("CELERY_BROKER_URL") or "filesystem://"
 )
 CELERY_TASK_IGNORE_RESULT = True
+# A submitted read asks for an analysis that starts this many seconds later, so reads
+# submitted meanwhile fold into one run (coordinators' "run now" starts at once).
+CAIRN_ANALYSIS_DEBOUNCE_SECONDS = envint("CAIRN_ANALYSIS_DEBOUNCE_SECONDS", 30)
 CELERY_TASK_ACKS_LATE = True
 CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1

@@ -16,7 +16,12 @@ class EventInputSerializer(serializers.Serializer):
     y_mm = serializers.FloatField(required=False, allow_null=True)
     z_mm = serializers.FloatField(required=False, allow_null=True)
     confidence = serializers.IntegerField(required=False, allow_null=True, min_value=1, max_value=3)
-    base_version = serializers.IntegerField(required=False, allow_null=True, min_value=0)
+    base_version = serializers.IntegerField(
+        min_value=0,
+        help_text="The read's version this action was made on (0 before any event; each "
+        "accepted event adds 1). A stale version is refused with 409, so a second tab or "
+        "machine cannot silently overwrite; a retried client_event_id is answered first.",
+    )
 
 
 class ActivitySerializer(serializers.Serializer):

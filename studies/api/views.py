@@ -14,7 +14,6 @@ from rest_framework.views import APIView
 from ..access import get_own_read, roles_in, studies_for
 from ..constants import ReadStatus
 from ..imaging.storage import COARSE_NAME, VIEWER_NAME
-from ..models import Placement
 from ..services import placing, reads
 from . import payloads
 from .serializers import (
@@ -75,18 +74,17 @@ class ReadEvents(APIView):
         read = get_own_read(request.user, code)
         form = EventInputSerializer(data=request.data)
         form.is_valid(raise_exception=True)
-        event, created = placing.record_event(
+        recorded = placing.record_event(
             read, request.user, placing.EventInput(**form.validated_data)
         )
-        placement = Placement.objects.filter(read=event.read, landmark=event.landmark).first()
-        read.refresh_from_db(fields=["version"])
+        placement = recorded.placement
         return Response(
             {
-                "created": created,
-                "version": read.version,
+                "created": recorded.created,
+                "version": recorded.version,
                 "placement": payloads.placement_dict(placement) if placement else None,
             },
-            status=201 if created else 200,
+            status=201 if recorded.created else 200,
         )
 
 

@@ -79,17 +79,21 @@ def fingerprint(table: pd.DataFrame, parameters: dict, version: str) -> str:
     return digest.hexdigest()
 
 
-def request_analysis(study: Study) -> AnalysisRun:
+def request_analysis(study: Study, *, delay_s: float = 0.0) -> AnalysisRun:
     """Ask for an analysis of the study's current placements; enqueue it after commit.
 
     Returns the waiting run when one is queued already, the stored run when the inputs
-    have not changed since it was computed, else a new pending run.
+    have not changed since it was computed, else a new pending run. `delay_s` debounces:
+    the run starts no sooner than that, so reads submitted meanwhile fold into it (a
+    submitted read asks with settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS). Asking with no
+    delay while a delayed run waits sends it again at once; the task is idempotent, so
+    whichever message comes first computes it and the other finds it finished.
     """
     with transaction.atomic():
         Study.objects.select_for_update().filter(pk=study.pk).first()
         waiting = study.analysis_runs.filter(status=RunStatus.PENDING).first()
         if waiting is not None:
-            if waiting.progress_message.startswith(DEFERRED):
+            if waiting.progress_message.startswith(DEFERRED) or delay_s <= 0:
                 transaction.on_commit(lambda: enqueue(waiting.pk))
             return waiting
         parameters = parameters_of(study)
@@ -100,16 +104,17 @@ def request_analysis(study: Study) -> AnalysisRun:
             return done.first()
         run = AnalysisRun.objects.create(study=study, parameters=parameters, input_digest=digest,
                                          code_version=version)
-        transaction.on_commit(lambda: enqueue(run.pk))
+        transaction.on_commit(lambda: enqueue(run.pk, delay_s=delay_s))
     return run
 
 
-def enqueue(run_pk: int) -> bool:
+def enqueue(run_pk: int, *, delay_s: float = 0.0) -> bool:
     """Send a run to the workers; when the broker is down, say so on the run and go on."""
     from ..tasks import compute_analysis
 
     try:
-        compute_analysis.delay(run_pk=run_pk)
+        compute_analysis.apply_async(kwargs={"run_pk": run_pk},
+                                     countdown=delay_s if delay_s > 0 else None)
     except Exception as error:
         log.warning("analysis run %s deferred: broker unreachable (%s)", run_pk, error)
         AnalysisRun.objects.filter(pk=run_pk).update(
@@ -193,6 +198,10 @@ def execute(run_pk: int) -> AnalysisRun | None:
             heartbeat_at=timezone.now())
 
     table = placements_table(run.study)
+    # Reads submitted after the request fold into a waiting run: store the fingerprint of
+    # the rows analysed here, not of those seen when the run was asked for.
+    run.code_version = code_version()
+    run.input_digest = fingerprint(table, run.parameters, run.code_version)
     n_reads = int(table.groupby(["case", "reader", "read"]).ngroups) if len(table) else 0
     try:
         if table.empty or table.groupby("case")["reader"].nunique().max() < 2:

@@ -108,15 +108,18 @@ def point_in_case(case: Case, xyz: tuple, what: str) -> tuple[tuple[float, ...],
 
 
 def _landmark(read: Read, code: str) -> Landmark:
-    landmark = read.study.landmarks.filter(
-        protocol_version=read.protocol_version, code=code
-    ).first()
+    landmark = (
+        Landmark.objects.filter(
+            study_id=read.study_id, protocol_version=read.protocol_version, code=code
+        ).only("id", "code", "may_be_absent").first()
+    )
     if landmark is None:
         raise ServiceError(f"landmark {code!r} is not in this read's protocol")
     return landmark
 
 
-def _check_kind(read: Read, landmark: Landmark, data: EventInput) -> None:
+def _check_values(data: EventInput) -> None:
+    """Checks that need no database: the kind and the confidence."""
     if data.kind not in EventKind.values:
         raise ServiceError(
             f"unknown event kind {data.kind!r}; use one of {', '.join(EventKind.values)}"
@@ -126,20 +129,39 @@ def _check_kind(read: Read, landmark: Landmark, data: EventInput) -> None:
         and CONFIDENCE_RANGE[0] <= data.confidence <= CONFIDENCE_RANGE[1]
     ):
         raise ServiceError(f"confidence must be 1, 2 or 3, got {data.confidence!r}")
-    exists = read.placements.filter(landmark=landmark).exists()
-    if data.kind == EventKind.MARKED_ABSENT and not landmark.may_be_absent:
+
+
+def _check_kind(landmark: Landmark, current: Placement | None, kind: str) -> None:
+    if kind == EventKind.MARKED_ABSENT and not landmark.may_be_absent:
         raise ServiceError(f"landmark {landmark.code} cannot be marked not visible")
-    if data.kind in (EventKind.REMOVED, EventKind.MOVED) and not exists:
-        raise ServiceError(f"landmark {landmark.code} has nothing to {data.kind.rstrip('d')}")
+    if kind in (EventKind.REMOVED, EventKind.MOVED) and current is None:
+        raise ServiceError(f"landmark {landmark.code} has nothing to {kind.rstrip('d')}")
 
 
-def record_event(read: Read, user, data: EventInput) -> tuple[PlacementEvent, bool]:
-    """Append one event and update the placement; return (event, created).
+@dataclass(frozen=True)
+class Recorded:
+    """What `record_event` did.
+
+    event: the stored event (the one stored before, for a retry); created: False for a
+    retry; version: the read's version now; placement: the landmark's current placement
+    (None when nothing is placed), with its landmark loaded.
+    """
+
+    event: PlacementEvent
+    created: bool
+    version: int
+    placement: Placement | None
+
+
+def record_event(read: Read, user, data: EventInput) -> Recorded:
+    """Append one event and update the placement, in one transaction.
 
     A retried event (same client_event_id) returns the stored one and changes nothing.
     With `base_version` set, the event is refused with ConflictError unless the read is
-    still at that version, so a second tab cannot silently overwrite the first.
+    still at that version, so a second tab cannot silently overwrite the first. Only the
+    read's row is locked; a placement save costs seven queries inside the transaction.
     """
+    _check_values(data)
     try:
         with transaction.atomic():
             return _record(read, user, data)
@@ -147,19 +169,22 @@ def record_event(read: Read, user, data: EventInput) -> tuple[PlacementEvent, bo
         stored = PlacementEvent.objects.filter(client_event_id=data.client_event_id).first()
         if stored is None:
             raise
-        return _retried(read, stored), False
+        return _retried(read, stored)
 
 
-def _retried(read: Read, stored: PlacementEvent) -> PlacementEvent:
+def _retried(read: Read, stored: PlacementEvent) -> Recorded:
     if stored.read_id != read.pk:
         raise ServiceError("this event id was already used for another read")
-    return stored
+    version = Read.objects.filter(pk=read.pk).values_list("version", flat=True).get()
+    placement = (Placement.objects.select_related("landmark")
+                 .filter(read_id=read.pk, landmark_id=stored.landmark_id).first())
+    return Recorded(stored, False, version, placement)
 
 
-def _record(read: Read, user, data: EventInput) -> tuple[PlacementEvent, bool]:
-    stored = PlacementEvent.objects.filter(client_event_id=data.client_event_id).first()
-    if stored is not None:
-        return _retried(read, stored), False
+def _record(read: Read, user, data: EventInput) -> Recorded:
+    if PlacementEvent.objects.filter(client_event_id=data.client_event_id).exists():
+        stored = PlacementEvent.objects.get(client_event_id=data.client_event_id)
+        return _retried(read, stored)
     read = _writable(read, user)
     if data.base_version is not None and data.base_version != read.version:
         raise ConflictError(
@@ -167,7 +192,8 @@ def _record(read: Read, user, data: EventInput) -> tuple[PlacementEvent, bool]:
             f"{data.base_version}); reload to continue"
         )
     landmark = _landmark(read, data.landmark)
-    _check_kind(read, landmark, data)
+    current = Placement.objects.filter(read=read, landmark=landmark).first()
+    _check_kind(landmark, current, data.kind)
     xyz = ijk = (None, None, None)
     if data.kind in (EventKind.PLACED, EventKind.MOVED):
         xyz, ijk = point_in_case(read.case, (data.x_mm, data.y_mm, data.z_mm),
@@ -193,9 +219,9 @@ def _record(read: Read, user, data: EventInput) -> tuple[PlacementEvent, bool]:
         client_event_id=data.client_event_id,
         read_version=read.version,
     )
-    current = Placement.objects.filter(read=read, landmark=landmark).first()
-    store_snapshot(read, landmark, current, apply_event(snapshot_of(current), event), event)
-    return event, True
+    placement = store_snapshot(read, landmark, current, apply_event(snapshot_of(current), event),
+                               event)
+    return Recorded(event, True, read.version, placement)
 
 
 def store_snapshot(
@@ -204,22 +230,26 @@ def store_snapshot(
     current: Placement | None,
     snapshot: PlacementSnapshot | None,
     event: PlacementEvent,
-) -> None:
-    """Write a snapshot to the Placement table (delete the row when nothing is placed)."""
+) -> Placement | None:
+    """Write a snapshot to the Placement table, one query; return the row (None: deleted).
+
+    `current` is the stored row (None when there is none); nothing is placed when
+    `snapshot` is None, and then the row is deleted.
+    """
     if snapshot is None:
         if current is not None:
             current.delete()
-        return
-    values = {
-        "state": snapshot.state,
-        "x_mm": snapshot.xyz_mm[0] if snapshot.xyz_mm else None,
-        "y_mm": snapshot.xyz_mm[1] if snapshot.xyz_mm else None,
-        "z_mm": snapshot.xyz_mm[2] if snapshot.xyz_mm else None,
-        "i_vox": snapshot.ijk_vox[0] if snapshot.ijk_vox else None,
-        "j_vox": snapshot.ijk_vox[1] if snapshot.ijk_vox else None,
-        "k_vox": snapshot.ijk_vox[2] if snapshot.ijk_vox else None,
-        "confidence": snapshot.confidence,
-        "placed_at": snapshot.placed_at,
-        "last_event": event,
-    }
-    Placement.objects.update_or_create(read=read, landmark=landmark, defaults=values)
+        return None
+    placement = current or Placement(read=read, landmark=landmark)
+    placement.landmark = landmark
+    placement.state = snapshot.state
+    placement.x_mm, placement.y_mm, placement.z_mm = snapshot.xyz_mm or (None, None, None)
+    placement.i_vox, placement.j_vox, placement.k_vox = snapshot.ijk_vox or (None, None, None)
+    placement.confidence = snapshot.confidence
+    placement.placed_at = snapshot.placed_at
+    placement.last_event = event
+    if current is None:
+        placement.save(force_insert=True)
+    else:
+        placement.save(force_update=True)
+    return placement

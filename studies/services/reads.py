@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from datetime import datetime
 
+from django.conf import settings
 from django.db import transaction
 from django.db.models import Q, QuerySet
 from django.utils import timezone
@@ -142,12 +143,29 @@ def worklist(user, study: Study | None = None, now: datetime | None = None) -> Q
     return reads.select_related("study").order_by("study__name", "worklist_position").distinct()
 
 
+_LOCKED_FIELDS = ("reader_id", "status", "available_from", "opened_at", "version",
+                  "active_seconds")
+
+
 def _writable(read: Read, user) -> Read:
-    read = Read.objects.select_for_update().select_related("study", "case").get(pk=read.pk)
+    """The read, locked for this transaction, if its reader may still change it.
+
+    Only the read's own row is locked (FOR UPDATE OF) and re-read, with its study's
+    status; its case is the one the caller fetched (a case's geometry never changes).
+    Locking the study or case rows too would make every event of every reader queue
+    behind one lock.
+    """
+    fresh = (Read.objects.select_for_update(of=("self",)).filter(pk=read.pk)
+             .values(*_LOCKED_FIELDS, "study__status").first())
+    if fresh is None:
+        raise ServiceError("this read no longer exists")
+    study_status = fresh.pop("study__status")
+    for name, value in fresh.items():
+        setattr(read, name, value)
     if read.reader_id != user.pk:
         raise NotAllowed("this read belongs to another reader")
-    if read.study.status != StudyStatus.OPEN:
-        raise ServiceError(f"the study is {read.study.status}; no more reading")
+    if study_status != StudyStatus.OPEN:
+        raise ServiceError(f"the study is {study_status}; no more reading")
     if read.status == ReadStatus.SUBMITTED:
         raise ServiceError("this read has been submitted and is locked")
     if read.available_from is None or read.available_from > timezone.now():
@@ -213,4 +231,4 @@ def _analyse_after_submit(study_pk: int) -> None:
 
     study = Study.objects.filter(pk=study_pk).first()
     if study is not None:
-        request_analysis(study)
+        request_analysis(study, delay_s=settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS)

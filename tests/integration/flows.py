@@ -64,18 +64,21 @@ def placement_flow() -> dict:
         "x_mm": xyz[0],
         "y_mm": xyz[1],
         "z_mm": xyz[2],
+        "base_version": 0,
     }
     url = f"/api/v1/reads/{read.code}/events/"
     statuses = [
         client.post(url, body, content_type="application/json").status_code for _ in range(3)
     ]
-    moved = dict(body, client_event_id=str(uuid.uuid4()), kind="moved", x_mm=xyz[0] + 1.0)
+    moved = dict(body, client_event_id=str(uuid.uuid4()), kind="moved", x_mm=xyz[0] + 1.0,
+                 base_version=1)
     statuses.append(client.post(url, moved, content_type="application/json").status_code)
     absent = {
         "client_event_id": str(uuid.uuid4()),
         "client_time": timezone.now().isoformat(),
         "landmark": "B",
         "kind": "marked_absent",
+        "base_version": 2,
     }
     statuses.append(client.post(url, absent, content_type="application/json").status_code)
     statuses.append(client.post(f"/api/v1/reads/{read.code}/submit/").status_code)

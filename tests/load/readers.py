@@ -4,10 +4,11 @@ Each reader signs in through the login form, takes its worklist, opens each read
 read's detail and its volume), then places, moves and removes landmarks with a short
 think time, and submits the read when every landmark is placed or marked not visible.
 
-Events go through an outbox, as on the page: an event gets its client_event_id once and
-keeps it; when the server cannot be reached or answers 5xx, the event stays queued and is
-sent again with the same id (after a short back-off) until the server acknowledges it.
-Nothing new is created while the outbox holds an unacknowledged event.
+Events go through an outbox, as on the page: an event gets its client_event_id and its
+base_version (the read's version it was made on) once and keeps them; when the server
+cannot be reached or answers 5xx, the event stays queued and is sent again with the same
+id (after a short back-off) until the server acknowledges it. Nothing new is created while
+the outbox holds an unacknowledged event.
 """
 
 from __future__ import annotations
@@ -84,6 +85,7 @@ class SimulatedReader(threading.Thread):
         self.rng = random.Random(seed)
         self.think_s = think_s
         self.outbox: deque[dict] = deque()
+        self.version = 0  # of the read being worked on, as last acknowledged
         self.error: str | None = None
 
     # -- HTTP -----------------------------------------------------------------------------
@@ -133,6 +135,7 @@ class SimulatedReader(threading.Thread):
             with self.record.lock:
                 if response.status_code in (200, 201):
                     body = response.json()
+                    self.version = body["version"]
                     self.record.acked[event["client_event_id"]] = {
                         "kind": event["kind"], "created": body["created"]}
                 else:
@@ -158,11 +161,13 @@ class SimulatedReader(threading.Thread):
         return {"x_mm": float(xyz[0]), "y_mm": float(xyz[1]), "z_mm": float(xyz[2])}
 
     def event(self, landmark: str, kind: str, **values) -> dict:
+        """A new action, made on the version the reader knows (the outbox holds one at most)."""
         return {"client_event_id": str(uuid.uuid4()), "client_time": datetime.now(UTC).isoformat(),
-                "landmark": landmark, "kind": kind, **values}
+                "landmark": landmark, "kind": kind, "base_version": self.version, **values}
 
     def work_on(self, code: str) -> None:
         detail = self.patiently("read_detail", "GET", f"/api/v1/reads/{code}/").json()
+        self.version = detail["version"]
         volume = detail["volume"]
         self.patiently("volume", "GET", volume["url"], headers={"Accept-Encoding": "zstd"})
         affine, shape = np.array(volume["affine"]), volume["shape"]

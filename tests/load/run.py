@@ -71,6 +71,7 @@ def main() -> int:
         sessions = sign_in(stack, study["readers"], study["password"])
         coordinator_session = login(stack.base_url, study["coordinator"], study["password"])
         record = Record()
+        cpu_before = stack.cpu_seconds()
         started = time.monotonic()
         readers = start_readers(stack, sessions, record, args.seconds)
         coordinator = Coordinator(stack.base_url, coordinator_session, record, study["slug"],
@@ -79,6 +80,7 @@ def main() -> int:
         for thread in [*readers, coordinator]:
             thread.join()
         elapsed = time.monotonic() - started
+        cpu_after = stack.cpu_seconds()
         runs = wait_for_runs(stack, timeout=120)
         counts = event_counts(stack, record)
         mismatch = rebuild_check(stack)
@@ -101,6 +103,9 @@ def main() -> int:
         emit("load.analysis_runs", sum(runs.values()), "count", None, None, by_status=runs,
              requested_by_coordinator=coordinator.requested)
         report_latencies(record, "load")
+        for part, seconds in cpu_after.items():  # where the two cores went during the load
+            emit(f"load.cpu_share.{part}", (seconds - cpu_before[part]) / elapsed, "cores", None,
+                 None, cpu_seconds=round(seconds - cpu_before[part], 1))
         for error in errors:
             print(f"reader failed: {error}", file=sys.stderr)
         ok = not (counts["lost"] or counts["duplicated"] or record.errors_5xx or mismatch

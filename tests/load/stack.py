@@ -204,6 +204,42 @@ class Stack:
 
     # -- helpers ---------------------------------------------------------------------------
 
+    def cpu_seconds(self) -> dict[str, float]:
+        """CPU seconds (user + system) used so far by each part: web, worker, db, redis, client.
+
+        Each part is a process tree; a process that ended before the call is not counted,
+        so take the difference of two calls made while the stack is up.
+        """
+        import psutil
+
+        def tree(pid: int | None) -> float:
+            if pid is None:
+                return 0.0
+            total = 0.0
+            try:
+                root = psutil.Process(pid)
+                for proc in [root, *root.children(recursive=True)]:
+                    with suppress(psutil.Error):
+                        times = proc.cpu_times()
+                        total += times.user + times.system
+            except psutil.Error:
+                pass
+            return total
+
+        def pid_of(process: Process) -> int | None:
+            return process.popen.pid if process.popen is not None else None
+
+        postmaster = self.pg.data / "postmaster.pid"
+        db_pid = int(postmaster.read_text().split()[0]) if postmaster.exists() else None
+        me = psutil.Process()
+        return {
+            "web": tree(pid_of(self.web)),
+            "worker": tree(pid_of(self.worker)),
+            "db": tree(db_pid),
+            "redis": tree(pid_of(self.redis)),
+            "client": sum(me.cpu_times()[:2]),
+        }
+
     def manage(self, *args: str, timeout: float = 300) -> subprocess.CompletedProcess:
         return subprocess.run([sys.executable, "manage.py", *args], cwd=ROOT, env=self.env,
                               capture_output=True, text=True, timeout=timeout)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import time
+from collections import Counter
 
 import numpy as np
 
@@ -12,17 +13,22 @@ from .stack import Stack
 
 
 def event_counts(stack: Stack, record: Record) -> dict[str, int]:
-    """lost: acknowledged but not stored; duplicated: stored more than once (extra rows);
-    unacknowledged: stored but never acknowledged to a client (a reply lost on the way)."""
-    rows = stack.sql("SELECT client_event_id::text, count(*) FROM studies_placementevent "
-                     "GROUP BY client_event_id")
-    stored = {event_id: n for event_id, n in rows}
+    """lost: acknowledged but not stored; unacknowledged: stored but never acknowledged to a
+    client (a reply lost on the way); duplicated: rows beyond the first of one action, where
+    an action is the same client_event_id, or the same read, landmark, kind, client time and
+    point stored under another id (a client that re-sent an action under a new id)."""
+    rows = stack.sql(
+        "SELECT client_event_id::text, read_id, landmark_id, kind, client_time, x_mm, y_mm, "
+        "z_mm FROM studies_placementevent")
+    by_id = Counter(row[0] for row in rows)
+    by_content = Counter(row[1:] for row in rows)
     acked = set(record.acked)
     return {
-        "lost": len(acked - set(stored)),
-        "duplicated": sum(n - 1 for n in stored.values() if n > 1),
-        "unacknowledged": len(set(stored) - acked),
-        "stored": sum(stored.values()),
+        "lost": len(acked - set(by_id)),
+        "duplicated": sum(n - 1 for n in by_id.values() if n > 1)
+        + sum(n - 1 for n in by_content.values() if n > 1),
+        "unacknowledged": len(set(by_id) - acked),
+        "stored": len(rows),
     }
 
 

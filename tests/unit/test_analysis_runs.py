@@ -106,14 +106,14 @@ def test_a_run_deferred_while_the_broker_was_down_is_sent_again(analysed_study, 
     def broker_down(**kwargs):
         raise ConnectionError("broker unreachable")
 
-    monkeypatch.setattr(tasks.compute_analysis, "delay", broker_down)
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", broker_down)
     run = analysis_runs.request_analysis(analysed_study)
     assert not analysis_runs.enqueue(run.pk)
     run.refresh_from_db()
     assert run.status == RunStatus.PENDING and run.progress_message.startswith("deferred:")
-    monkeypatch.setattr(tasks.compute_analysis, "delay", lambda **kwargs: sent.append(kwargs))
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
     assert analysis_runs.resend_deferred(analysed_study)
-    assert sent == [{"run_pk": run.pk}]
+    assert sent == [{"kwargs": {"run_pk": run.pk}, "countdown": None}]
     run.refresh_from_db()
     assert run.progress_message == "queued"
     assert not analysis_runs.resend_deferred(analysed_study)
@@ -131,6 +131,38 @@ def test_submitting_reads_queues_at_most_one_run_per_study(open_study, cast, dja
         submit_all(open_study, cast["reader_a"])
         submit_all(open_study, cast["reader_b"])
     assert AnalysisRun.objects.filter(status=RunStatus.PENDING).count() == 1
+
+
+def test_a_submitted_read_asks_for_a_debounced_run_and_run_now_sends_it_at_once(
+    open_study, cast, settings, monkeypatch, django_capture_on_commit_callbacks
+) -> None:
+    from studies import tasks
+
+    settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45
+    sent = []
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
+    with django_capture_on_commit_callbacks(execute=True):
+        submit_all(open_study, cast["reader_a"])
+        submit_all(open_study, cast["reader_b"])
+    run = AnalysisRun.objects.get(status=RunStatus.PENDING)
+    assert sent == [{"kwargs": {"run_pk": run.pk}, "countdown": 45}]
+    with django_capture_on_commit_callbacks(execute=True):
+        assert analysis_runs.request_analysis(open_study).pk == run.pk
+    assert sent[1:] == [{"kwargs": {"run_pk": run.pk}, "countdown": None}]
+
+
+def test_a_run_stores_the_fingerprint_of_the_rows_it_analysed(open_study, cast) -> None:
+    """Reads submitted while a run waits fold into it: its digest must cover them."""
+    submit_all(open_study, cast["reader_a"])
+    run = analysis_runs.request_analysis(open_study)
+    asked_digest = run.input_digest
+    submit_all(open_study, cast["reader_b"], offset_vox=(0.5, 0.0, 0.0))
+    run = analysis_runs.execute(run.pk)
+    table = analysis_runs.placements_table(open_study)
+    assert run.status == RunStatus.COMPLETED and run.n_placements == len(table)
+    assert run.input_digest == analysis_runs.fingerprint(
+        table, run.parameters, analysis_runs.code_version())
+    assert run.input_digest != asked_digest
 
 
 def test_it_adds_an_adaptive_read_for_a_flagged_case(open_study, cast, django_user_model) -> None:
@@ -165,7 +197,7 @@ def test_a_worker_connecting_sends_every_deferred_run(analysed_study, monkeypatc
     run = analysis_runs.request_analysis(analysed_study)
     AnalysisRun.objects.filter(pk=run.pk).update(progress_message="deferred: broker down")
     sent = []
-    monkeypatch.setattr(tasks.compute_analysis, "delay", lambda **kwargs: sent.append(kwargs))
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
     assert ResendDeferredRuns in app.steps["consumer"]
     ResendDeferredRuns(parent=None).start(consumer=None)
-    assert sent == [{"run_pk": run.pk}]
+    assert sent == [{"kwargs": {"run_pk": run.pk}, "countdown": None}]

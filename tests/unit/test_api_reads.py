@@ -14,7 +14,7 @@ from rest_framework.test import APIClient
 
 from studies.imaging.geometry import voxel_to_world
 from studies.imaging.storage import read_canonical
-from studies.models import PlacementEvent
+from studies.models import PlacementEvent, Read
 
 
 @pytest.fixture
@@ -42,6 +42,7 @@ def event_body(read, **overrides) -> dict:
         "y_mm": xyz[1],
         "z_mm": xyz[2],
         "confidence": 2,
+        "base_version": Read.objects.get(pk=read.pk).version,
     }
     body.update(overrides)
     return body
@@ -107,6 +108,7 @@ def test_it_stores_an_event_once_when_retried(open_study, cast, client_for) -> N
         ({"client_event_id": "not-a-uuid"}, 400, "client_event_id"),
         ({"confidence": 7}, 400, "confidence"),
         ({"base_version": 5}, 409, "changed elsewhere"),
+        ({"base_version": None}, 400, "base_version"),
     ],
 )
 def test_it_refuses_bad_events_with_a_message_and_stores_nothing(

@@ -24,7 +24,7 @@ def _one_event(study, user):
     data = placing.EventInput(
         "A", EventKind.PLACED, uuid.uuid4(), timezone.now(), x_mm=x, y_mm=y, z_mm=z
     )
-    return placing.record_event(read, user, data)[0]
+    return placing.record_event(read, user, data).event
 
 
 def test_it_refuses_save_on_an_existing_event(open_study, cast) -> None:

@@ -36,8 +36,9 @@ def place(read, user, landmark="A", ijk=(3.25, 4.5, 2.0), **extra):
 
 def test_it_stores_world_mm_and_the_continuous_voxel_index(open_study, cast) -> None:
     read = first_read(open_study, cast["reader_a"])
-    event, created = place(read, cast["reader_a"], ijk=(3.25, 4.5, 2.0))
-    assert created
+    recorded = place(read, cast["reader_a"], ijk=(3.25, 4.5, 2.0))
+    event = recorded.event
+    assert recorded.created and recorded.version == 1
     np.testing.assert_allclose([event.i_vox, event.j_vox, event.k_vox], [3.25, 4.5, 2.0], atol=1e-9)
     placement = Placement.objects.get(read=read)
     assert placement.state == PlacementState.PLACED
@@ -47,10 +48,11 @@ def test_it_stores_world_mm_and_the_continuous_voxel_index(open_study, cast) -> 
 def test_it_stores_a_retried_event_once(open_study, cast) -> None:
     read = first_read(open_study, cast["reader_a"])
     event_id = uuid.uuid4()
-    first, created = place(read, cast["reader_a"], client_event_id=event_id)
-    again, created_again = place(read, cast["reader_a"], client_event_id=event_id)
-    assert created and not created_again
-    assert first.pk == again.pk
+    first = place(read, cast["reader_a"], client_event_id=event_id)
+    again = place(read, cast["reader_a"], client_event_id=event_id)
+    assert first.created and not again.created
+    assert first.event.pk == again.event.pk
+    assert again.version == 1 and again.placement.pk == first.placement.pk
     assert PlacementEvent.objects.filter(client_event_id=event_id).count() == 1
     read.refresh_from_db()
     assert read.version == 1
@@ -69,8 +71,7 @@ def test_it_refuses_points_outside_the_volume(open_study, cast, ijk, message) ->
 
 def test_it_accepts_a_point_within_half_a_voxel_of_the_edge(open_study, cast) -> None:
     read = first_read(open_study, cast["reader_a"])
-    _, created = place(read, cast["reader_a"], ijk=(-0.49, 13.49, 9.49))
-    assert created
+    assert place(read, cast["reader_a"], ijk=(-0.49, 13.49, 9.49)).created
 
 
 def test_it_refuses_non_finite_coordinates(open_study, cast) -> None:
