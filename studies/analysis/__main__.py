@@ -4,13 +4,20 @@ Usage::
 
     python -m studies.analysis PLACEMENTS.csv --out DIR [--predictions PRED.csv]
         [--consensus mean|median|geomedian|weighted] [--tolerance MM]
-        [--outlier-multiple K]
+        [--outlier-multiple K] [--require-repeats]
 
 Writes agreement_by_landmark.csv, agreement_by_case.csv, consensus.csv,
 repeatability.csv, reader_bias.csv, drift.csv (plus detector.csv and
 williams.csv with --predictions) and summary.json into DIR, and prints a
 short summary. Invalid input ends with exit code 2 and a one-line error that
 names the row and column; no file is written then.
+
+``--require-repeats`` says that repeat reads are part of the design: every
+reader must have at least one repeat read (a row with read 2). A reader with
+only first reads (one point per case and landmark) is then refused with exit
+code 2, naming the reader, the reader's first row and the column ``read``.
+Without the flag such a reader is accepted; their repeatability rows have
+n_pairs 0 and a reason.
 """
 
 from __future__ import annotations
@@ -29,7 +36,7 @@ import pandas as pd
 from .consensus import METHODS
 from .pipeline import AnalysisResult, run_analysis
 from .scoring import read_predictions_csv
-from .table import PlacementTableError
+from .table import PlacementTableError, require_repeat_reads, validate_placements
 
 __all__ = ["main"]
 
@@ -50,6 +57,10 @@ def _parser() -> argparse.ArgumentParser:
                    help="spread in mm that flags a point for adjudication (default: 3)")
     p.add_argument("--outlier-multiple", type=float, default=3.0, metavar="K",
                    help="outlier threshold in multiples of the robust spread (default: 3)")
+    p.add_argument("--require-repeats", action="store_true",
+                   help="repeat reads are part of this design: refuse the input (exit code 2) "
+                        "if any reader has no repeat read (read 2) at all, naming the reader "
+                        "and that reader's first row")
     return p
 
 
@@ -103,6 +114,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         placements = _read_csv(args.placements)
+        if args.require_repeats:
+            require_repeat_reads(validate_placements(placements))
         predictions = read_predictions_csv(args.predictions) if args.predictions else None
         result = run_analysis(placements, predictions, consensus=args.consensus,
                               tolerance_mm=args.tolerance, outlier_multiple=args.outlier_multiple)

@@ -17,6 +17,8 @@ placed_at  ISO 8601 time stamp of the placement (may be empty)
 ========== =============================================================
 
 :func:`validate_placements` checks the table and returns a clean copy;
+:func:`require_repeat_reads` additionally refuses a reader without any repeat read, for
+designs in which every reader reads some cases twice;
 :func:`to_dense` turns it into arrays indexed (read, case, landmark, reader).
 Every error is a :class:`PlacementTableError` that names the row (1-based
 data row of the CSV file, header excluded) and the column.
@@ -36,6 +38,7 @@ __all__ = [
     "DenseStudy",
     "PlacementTableError",
     "read_placements_csv",
+    "require_repeat_reads",
     "to_dense",
     "validate_placements",
 ]
@@ -281,6 +284,44 @@ def validate_placements(df: pd.DataFrame) -> pd.DataFrame:
     clean["placed_at"] = _times(df)
     _check_keys(clean)
     return clean
+
+
+def require_repeat_reads(clean: pd.DataFrame) -> None:
+    """Refuse a table in which some reader has no repeat read at all.
+
+    For designs in which repeat reads are part of the plan (every reader reads some cases
+    a second time, read 2): a reader with only first reads, one point per case and
+    landmark, would otherwise get only empty repeatability rows (n_pairs 0, a reason).
+
+    Parameters
+    ----------
+    clean : pandas.DataFrame
+        Output of :func:`validate_placements`.
+
+    Raises
+    ------
+    PlacementTableError
+        Naming the first such reader (in file order), with that reader's first row and
+        the column ``read``; the message also lists any other reader without repeats.
+    """
+    codes = clean["reader"].cat.codes.to_numpy(dtype=np.int64)
+    n_readers = len(clean["reader"].cat.categories)
+    has_repeat = np.zeros(n_readers, dtype=bool)
+    has_repeat[codes[clean["read"].to_numpy() == 2]] = True
+    missing = _bad(~has_repeat[codes])
+    if missing is None:
+        return
+    first_rows = pd.Series(np.arange(len(codes))).groupby(codes).min()
+    lacking = [int(code) for code in np.flatnonzero(~has_repeat)]
+    lacking.sort(key=lambda code: int(first_rows[code]))
+    names = [key_label(clean["reader"].cat.categories[code]) for code in lacking]
+    others = ""
+    if len(names) > 1:
+        who = "reader" if len(names) == 2 else "readers"
+        others = f"; {who} {', '.join(map(repr, names[1:]))} also without any"
+    raise PlacementTableError(
+        f"repeat reads are required, but reader {names[0]!r} has none (no row with read 2; "
+        f"this is the reader's first row){others}", missing + 1, "read")
 
 
 @dataclass(frozen=True)

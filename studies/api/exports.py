@@ -6,7 +6,7 @@ Exports carry the coordinator-side case labels, so only coordinators may fetch t
 from __future__ import annotations
 
 from django.http import Http404, HttpResponse
-from drf_spectacular.utils import OpenApiResponse, extend_schema
+from drf_spectacular.utils import OpenApiResponse, extend_schema, extend_schema_field
 from rest_framework import serializers
 from rest_framework.parsers import FormParser, MultiPartParser
 from rest_framework.request import Request
@@ -127,8 +127,14 @@ class ArchiveExport(APIView):
         )
 
 
+@extend_schema_field({"type": "string", "format": "binary"})
+class UploadedFileField(serializers.FileField):
+    """A file sent as a multipart part; documented as binary (a plain FileField reads as a URI,
+    its shape in responses)."""
+
+
 class PredictionsUploadSerializer(serializers.Serializer):
-    file = serializers.FileField()
+    file = UploadedFileField()
     name = serializers.CharField(required=False, allow_blank=True, max_length=100)
 
 

@@ -76,3 +76,68 @@ def test_it_names_missing_columns_and_bad_options(tmp_path):
     assert proc.returncode == 2 and "-2.0" in proc.stderr
     proc = run_cli(str(placements), "--out", str(tmp_path / "o"), "--consensus", "mode")
     assert proc.returncode == 2
+
+
+def write_without_repeats(tmp_path: Path, *readers: str) -> tuple[Path, pd.DataFrame]:
+    """The study of `write_study`, with every repeat read (read 2) of `readers` removed."""
+    df = pd.read_csv(write_study(tmp_path), dtype=str, keep_default_na=False)
+    df = df[~(df["reader"].isin(readers) & (df["read"] == "2"))].reset_index(drop=True)
+    path = tmp_path / "no_repeats.csv"
+    df.to_csv(path, index=False)
+    return path, df
+
+
+def first_row_of(df: pd.DataFrame, reader: str) -> int:
+    """1-based data row (header not counted), as the error messages count rows."""
+    return int(df.index[df["reader"] == reader][0]) + 1
+
+
+def test_it_refuses_a_reader_without_repeat_reads_when_repeats_are_required(tmp_path):
+    path, df = write_without_repeats(tmp_path, "reader_c")
+    assert (df["read"] == "2").any()  # the other readers still have their repeats
+    out = tmp_path / "out"
+    proc = run_cli(str(path), "--out", str(out), "--require-repeats")
+    assert proc.returncode == 2
+    err = proc.stderr.strip()
+    assert len(err.splitlines()) == 1 and "Traceback" not in proc.stderr
+    assert "reader 'reader_c' has none (no row with read 2" in err
+    assert f"row {first_row_of(df, 'reader_c')} " in err and "column 'read'" in err
+    assert "'reader_a'" not in err and "'reader_b'" not in err and "'reader_d'" not in err
+    assert not out.exists()
+
+
+def test_it_names_every_reader_without_repeats_and_the_first_ones_row(tmp_path):
+    path, df = write_without_repeats(tmp_path, "reader_d", "reader_b")
+    proc = run_cli(str(path), "--out", str(tmp_path / "out"), "--require-repeats")
+    assert proc.returncode == 2
+    err = proc.stderr.strip()
+    # reader_b comes first in the file, so its row is the one given
+    assert f"row {first_row_of(df, 'reader_b')} " in err
+    assert "reader 'reader_b' has none" in err and "'reader_d' also without any" in err
+
+
+def test_without_the_flag_a_reader_without_repeats_is_accepted_as_before(tmp_path):
+    """Repeat reads are optional unless asked for: the reader's repeatability is empty."""
+    path, _ = write_without_repeats(tmp_path, "reader_c")
+    out = tmp_path / "out"
+    proc = run_cli(str(path), "--out", str(out))
+    assert proc.returncode == 0, proc.stderr
+    repeat = pd.read_csv(out / "repeatability.csv").set_index(["reader", "landmark"])
+    assert (repeat.loc["reader_c", "n_pairs"] == 0).all()
+    assert repeat.loc["reader_c", "reason"].notna().all()
+    assert (repeat.loc["reader_a", "n_pairs"] == 4).all()  # make_placements: 4 repeat cases
+
+
+def test_the_flag_changes_nothing_when_every_reader_has_repeats(tmp_path):
+    placements = write_study(tmp_path)
+    plain, strict = tmp_path / "plain", tmp_path / "strict"
+    assert run_cli(str(placements), "--out", str(plain)).returncode == 0
+    proc = run_cli(str(placements), "--out", str(strict), "--require-repeats")
+    assert proc.returncode == 0, proc.stderr
+    for name in ("repeatability.csv", "consensus.csv", "summary.json"):
+        assert (strict / name).read_bytes() == (plain / name).read_bytes(), name
+
+
+def test_the_help_documents_the_flag():
+    proc = run_cli("--help")
+    assert proc.returncode == 0 and "--require-repeats" in proc.stdout

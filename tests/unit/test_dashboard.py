@@ -14,16 +14,6 @@ from studies.services import analysis_runs
 from tests.unit.test_analysis_runs import submit_all
 
 
-@pytest.fixture
-def analysed(open_study, cast):
-    """The open study with both readers' reads submitted and one completed analysis run."""
-    submit_all(open_study, cast["reader_a"])
-    submit_all(open_study, cast["reader_b"], offset_vox=(0.5, -0.25, 0.5), absent_b=False)
-    run = analysis_runs.execute(analysis_runs.request_analysis(open_study).pk)
-    assert run.status == RunStatus.COMPLETED
-    return open_study, run
-
-
 def login(client, user):
     client.force_login(user)
     return client

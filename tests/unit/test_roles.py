@@ -1,5 +1,5 @@
-"""Role tests: every page and API endpoint as anonymous, reader, adjudicator, a coordinator
-of another study, and the study's own coordinator.
+"""Role tests: every page and API endpoint as anonymous, reader, adjudicator, a reader of
+another study, a coordinator of another study, and the study's own coordinator.
 
 The rule (studies/access.py, the study design's blinding section): anonymous visitors are
 sent to sign in (pages) or refused (API, 403 from session authentication); someone with
@@ -12,19 +12,32 @@ names come from the URL conf itself, so a new endpoint fails
 from __future__ import annotations
 
 import json
+import uuid
 from dataclasses import dataclass, field
+from datetime import timedelta
+from pathlib import Path
 
 import pytest
 from django.db import transaction
 from django.test import Client
 from django.urls import reverse
+from django.utils import timezone
 
 from studies.constants import Role
-from studies.services import studies
+from studies.imaging.storage import write_case_files
+from studies.services import cases, studies
+from tests.conftest import tiny_volume
 
 from .url_walk import all_urls, leaves
 
-PERSONAS = ("anonymous", "reader", "adjudicator", "other_coordinator", "coordinator")
+PERSONAS = (
+    "anonymous",
+    "reader",
+    "adjudicator",
+    "other_reader",
+    "other_coordinator",
+    "coordinator",
+)
 LOGIN = "login"  # 302 to the sign-in page with ?next=
 ALLOWED = "allowed"  # past the access check: 2xx, a redirect of the page's own, 400 or 409
 ALLOWED_STATUSES = {200, 201, 302, 400, 409}
@@ -41,27 +54,34 @@ class Expect:
     extra: dict = field(default_factory=dict)  # persona -> extra accepted statuses
 
 
-def _rows(anonymous, reader, adjudicator, other, coordinator) -> dict:
-    return dict(zip(PERSONAS, (anonymous, reader, adjudicator, other, coordinator), strict=True))
+def _rows(anonymous, reader, adjudicator, other_reader, other, coordinator) -> dict:
+    """One outcome per persona, in the order of PERSONAS.
+
+    `other_reader` reads in another study and has no role in this one: like the other
+    coordinator, this study does not exist for them (404), but their own pages work.
+    """
+    outcomes = (anonymous, reader, adjudicator, other_reader, other, coordinator)
+    return dict(zip(PERSONAS, outcomes, strict=True))
 
 
-COORDINATOR_PAGE = _rows(LOGIN, 403, 403, 404, 200)
-COORDINATOR_ACTION = _rows(LOGIN, 403, 403, 404, ALLOWED)
-COORDINATOR_API = _rows(403, 403, 403, 404, ALLOWED)
-OWN_READ_API = _rows(403, 200, 404, 404, 404)
-OWN_READ_ACTION = _rows(403, ALLOWED, 404, 404, 404)
-REVIEW_API = _rows(403, 403, 404, 404, ALLOWED)  # the adjudicator's queue is empty here
-ANY_USER_API = _rows(403, 200, 200, 200, 200)
-PUBLIC = _rows(200, 200, 200, 200, 200)
+COORDINATOR_PAGE = _rows(LOGIN, 403, 403, 404, 404, 200)
+COORDINATOR_ACTION = _rows(LOGIN, 403, 403, 404, 404, ALLOWED)
+COORDINATOR_API = _rows(403, 403, 403, 404, 404, ALLOWED)
+OWN_READ_API = _rows(403, 200, 404, 404, 404, 404)
+OWN_READ_ACTION = _rows(403, ALLOWED, 404, 404, 404, 404)
+REVIEW_API = _rows(403, 403, 404, 404, 404, ALLOWED)  # the adjudicator's queue is empty here
+ANY_USER_API = _rows(403, 200, 200, 200, 200, 200)
+PUBLIC = _rows(200, 200, 200, 200, 200, 200)
 
 EXPECTED: dict[str, Expect] = {
     # pages
-    "viewer-home": Expect(_rows(LOGIN, 200, 200, 200, 200)),
-    "viewer-login": Expect(_rows(200, 302, 302, 302, 302)),
-    "viewer-logout": Expect(_rows(302, 302, 302, 302, 302), method="post"),
+    "viewer-home": Expect(_rows(LOGIN, 200, 200, 200, 200, 200)),
+    "viewer-login": Expect(_rows(200, 302, 302, 302, 302, 302)),
+    "viewer-logout": Expect(_rows(302, 302, 302, 302, 302, 302), method="post"),
     "viewer-study": Expect(COORDINATOR_PAGE, "slug"),
-    "viewer-read": Expect(_rows(LOGIN, 200, 404, 404, 404), "read"),
-    "viewer-study-new": Expect(_rows(LOGIN, 403, 403, 200, 200)),
+    "viewer-read": Expect(_rows(LOGIN, 200, 404, 404, 404, 404), "read"),
+    # only staff and coordinators (of any study) may create a study
+    "viewer-study-new": Expect(_rows(LOGIN, 403, 403, 403, 200, 200)),
     "viewer-study-edit": Expect(COORDINATOR_PAGE, "slug"),
     "viewer-study-protocol": Expect(COORDINATOR_PAGE, "slug"),
     "viewer-study-protocol-export": Expect(COORDINATOR_PAGE, "export"),
@@ -78,7 +98,7 @@ EXPECTED: dict[str, Expect] = {
     "studies-read-submit": Expect(OWN_READ_ACTION, "read", method="post"),
     "studies-read-activity": Expect(OWN_READ_ACTION, "read", method="post", body={"seconds": 1.0}),
     # adjudication and review
-    "studies-adjudication-queue": Expect(_rows(403, 403, 200, 404, 200), "slug"),
+    "studies-adjudication-queue": Expect(_rows(403, 403, 200, 404, 404, 200), "slug"),
     "studies-review-detail": Expect(REVIEW_API, "review"),
     "studies-review-decisions": Expect(REVIEW_API, "review", method="post", body={}),
     "studies-review-volume": Expect(REVIEW_API, "review_volume"),
@@ -100,8 +120,8 @@ EXPECTED: dict[str, Expect] = {
     "viewer-report-pdf": Expect(COORDINATOR_PAGE, "slug", extra={"coordinator": {404}}),
     "viewer-study-audit": Expect(COORDINATOR_PAGE, "slug"),
     # adjudication pages: adjudicators see the queue, and only queued cases (none here)
-    "viewer-adjudication": Expect(_rows(LOGIN, 403, 200, 404, 200), "slug"),
-    "viewer-review": Expect(_rows(LOGIN, 403, 404, 404, ALLOWED), "review"),
+    "viewer-adjudication": Expect(_rows(LOGIN, 403, 200, 404, 404, 200), "slug"),
+    "viewer-review": Expect(_rows(LOGIN, 403, 404, 404, 404, ALLOWED), "review"),
     "viewer-exports": Expect(COORDINATOR_PAGE, "slug"),
     "viewer-predictions": Expect(COORDINATOR_PAGE, "slug"),
     # case upload (no upload job exists in the fixture: its status pages are 404 for all)
@@ -116,22 +136,43 @@ EXPECTED: dict[str, Expect] = {
 }
 
 
+def open_other_study(coordinator, reader, data_dir: Path):
+    """Another open study, one tiny case, read by `reader` alone (who has a read in it)."""
+    other = studies.create_study(
+        name="Other study", slug="other-study", coordinator=coordinator, readers_per_case=1
+    )
+    studies.set_protocol(other, [{"code": "A", "name": "Point A"}])
+    volume = tiny_volume(seed=7)
+    stored = write_case_files(data_dir, f"o/{uuid.uuid4().hex}", volume)
+    cases.create_case(other, stored, checksum=volume.checksum, label="other-case")
+    studies.add_member(other, reader, Role.READER)
+    return studies.open_study(other, now=timezone.now() - timedelta(days=1))
+
+
 @pytest.fixture
-def people(open_study, cast, django_user_model):
-    """The five personas, and the objects the URLs are built from."""
+def people(open_study, cast, django_user_model, settings):
+    """The six personas, and the objects the URLs are built from."""
     adjudicator = django_user_model.objects.create_user("adjudicator", password="pw-adj")
     studies.add_member(open_study, adjudicator, Role.ADJUDICATOR)
     other = django_user_model.objects.create_user("other_coordinator", password="pw-oc")
-    studies.create_study(name="Other study", slug="other-study", coordinator=other)
+    other_reader = django_user_model.objects.create_user("other_reader", password="pw-or")
+    other_study = open_other_study(other, other_reader, Path(settings.CAIRN_DATA_DIR))
     users = {
         "anonymous": None,
         "reader": cast["reader_a"],
         "adjudicator": adjudicator,
+        "other_reader": other_reader,
         "other_coordinator": other,
         "coordinator": cast["pi"],
     }
     read = open_study.reads.filter(reader=cast["reader_a"]).order_by("worklist_position")[0]
-    return {"users": users, "study": open_study, "read": read, "case": read.case}
+    return {
+        "users": users,
+        "study": open_study,
+        "read": read,
+        "case": read.case,
+        "other_study": other_study,
+    }
 
 
 def kwargs_for(kind: str, objects: dict) -> dict:
@@ -201,6 +242,39 @@ def test_it_gives_each_persona_exactly_its_access(people, persona) -> None:
                 f"{expect.method.upper()} {name} {path}: {response.status_code}, expected {wanted}"
             )
     assert not wrong, "\n".join(wrong)
+
+
+def test_a_reader_of_another_study_keeps_their_own_pages_and_sees_none_of_this_one(
+    people,
+) -> None:
+    """The other study's reader: home, worklist and their own read work; this study is 404.
+
+    The walk above checks status codes; this checks what the 200s hold (the access rule
+    of studies/access.py: an outsider to a study is told nothing about it).
+    """
+    study, other_study = people["study"], people["other_study"]
+    user = people["users"]["other_reader"]
+    own = other_study.reads.get(reader=user)
+    client = client_for(user)
+
+    worklist = client.get(reverse("studies-worklist"))
+    assert worklist.status_code == 200
+    assert [r["code"] for r in worklist.json()["reads"]] == [str(own.code)]
+
+    listed = client.get(reverse("studies-study-list")).json()["studies"]
+    assert [(s["slug"], s["roles"]) for s in listed] == [(other_study.slug, [Role.READER])]
+
+    home = client.get(reverse("viewer-home"))
+    assert home.status_code == 200
+    page = home.content.decode()
+    assert other_study.name in page and study.name not in page
+
+    assert client.get(reverse("studies-read-detail", kwargs={"code": own.code})).status_code == 200
+    assert client.get(reverse("viewer-read", kwargs={"code": own.code})).status_code == 200
+    this_read = reverse("studies-read-detail", kwargs={"code": people["read"].code})
+    assert client.get(this_read).status_code == 404
+    this_study = reverse("viewer-study", kwargs={"slug": study.slug})
+    assert client.get(this_study).status_code == 404
 
 
 @pytest.mark.parametrize("persona", PERSONAS)
