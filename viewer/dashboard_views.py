@@ -2,6 +2,8 @@
 
 Every view fetches the study through studies.access.get_study with the coordinator role:
 an outsider gets a 404, a reader or adjudicator a 403. The work is in studies.reporting.
+Every download (a table's CSV, the HTML report saved as a file, the PDF report) is recorded
+in the audit log as an export, like the API's exports.
 """
 
 from __future__ import annotations
@@ -15,6 +17,8 @@ from django.urls import reverse
 from django.utils.text import slugify
 from django.views.decorators.http import require_GET, require_POST
 
+from audit import log as audit
+from audit.models import AuditKind
 from studies.access import get_study
 from studies.constants import Role
 from studies.reporting import report as results
@@ -24,6 +28,13 @@ COORDINATOR = [Role.COORDINATOR]
 #: Figure options a URL may carry, per figure kind.
 FIGURE_OPTIONS = {"pair": ("reader_a", "reader_b"), "repeat": ("reader",), "drift": ("reader",),
                   "points": ("case", "landmark")}
+
+
+def _attachment(request: HttpRequest, study, response: HttpResponse, name: str) -> HttpResponse:
+    """Make `response` a download named `name`, recorded in the audit log as an export."""
+    audit.record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
+    response["Content-Disposition"] = f'attachment; filename="{name}"'
+    return response
 
 
 def _figure_url(slug: str, kind: str, **options: str) -> str:
@@ -126,8 +137,7 @@ def dashboard_csv(request: HttpRequest, slug: str, name: str) -> HttpResponse:
     except results.ReportError as error:
         raise Http404(str(error)) from error
     response = HttpResponse(frame.to_csv(index=False), content_type="text/csv; charset=utf-8")
-    response["Content-Disposition"] = f'attachment; filename="{study.slug}-{name}.csv"'
-    return response
+    return _attachment(request, study, response, f"{study.slug}-{name}.csv")
 
 
 def _report_parts(request: HttpRequest, slug: str):
@@ -142,12 +152,12 @@ def _report_parts(request: HttpRequest, slug: str):
 @require_GET
 @csp_replace({"style-src": [UNSAFE_INLINE], "script-src": [NONE]})  # its own <style>, no code
 def report(request: HttpRequest, slug: str) -> HttpResponse:
-    """The self-contained HTML report; ?download=1 saves it as a file."""
+    """The self-contained HTML report; ?download=1 saves it as a file (an audited export)."""
     study, run = _report_parts(request, slug)
     response = HttpResponse(results.report_html(study, run), content_type="text/html")
     if request.GET.get("download"):
         name = slugify(f"{study.slug}-report")
-        response["Content-Disposition"] = f'attachment; filename="{name}.html"'
+        return _attachment(request, study, response, f"{name}.html")
     return response
 
 
@@ -158,5 +168,4 @@ def report_pdf(request: HttpRequest, slug: str) -> HttpResponse:
     study, run = _report_parts(request, slug)
     pdf = results.report_pdf(results.report_html(study, run))
     response = HttpResponse(pdf, content_type="application/pdf")
-    response["Content-Disposition"] = f'attachment; filename="{study.slug}-report.pdf"'
-    return response
+    return _attachment(request, study, response, f"{study.slug}-report.pdf")

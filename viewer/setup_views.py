@@ -20,6 +20,8 @@ from django.http import Http404, HttpRequest, HttpResponse
 from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST, require_safe
 
+from audit import log as audit
+from audit.models import AuditKind
 from studies.access import get_study, studies_for
 from studies.analysis.planning import (
     PlanningInputError,
@@ -210,7 +212,10 @@ def study_protocol(request: HttpRequest, slug: str) -> HttpResponse:
 @login_required
 @require_safe
 def study_protocol_export(request: HttpRequest, slug: str, fmt: str) -> HttpResponse:
-    """Download a protocol version (the current one unless ?version=N) as CSV or JSON."""
+    """Download a protocol version (the current one unless ?version=N) as CSV or JSON.
+
+    The download is recorded in the audit log as an export.
+    """
     study = get_study(request.user, slug, COORDINATOR)
     if fmt not in EXPORT_TYPES:
         raise Http404("no such export format")
@@ -225,10 +230,10 @@ def study_protocol_export(request: HttpRequest, slug: str, fmt: str) -> HttpResp
         body = protocol_io.protocol_to_csv(items)
     else:
         body = protocol_io.protocol_to_json(items, study=study.slug, protocol_version=version)
+    name = f"{study.slug}-protocol-v{version}.{fmt}"
+    audit.record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
     response = HttpResponse(body, content_type=EXPORT_TYPES[fmt])
-    response["Content-Disposition"] = (
-        f'attachment; filename="{study.slug}-protocol-v{version}.{fmt}"'
-    )
+    response["Content-Disposition"] = f'attachment; filename="{name}"'
     return response
 
 

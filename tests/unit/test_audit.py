@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import re
+from dataclasses import dataclass, field
+
 import pytest
 from django.test import Client
 from django.urls import reverse
@@ -10,6 +13,8 @@ from audit.log import AuditKindError, entries_for_study, record
 from audit.models import AuditEntry, AuditKind
 from studies.constants import Role
 from studies.services import studies
+
+from .url_walk import leaves
 
 
 def test_it_records_a_login_with_the_client_address(cast) -> None:
@@ -122,3 +127,126 @@ def test_it_hides_the_audit_page_from_everyone_but_coordinators(open_study, cast
         client = Client()
         client.force_login(cast[name])
         assert client.get(url).status_code == status, name
+
+
+#: The client address of the download tests (a documentation address, RFC 5737).
+CLIENT_ADDRESS = "192.0.2.44"
+
+
+@dataclass(frozen=True)
+class Download:
+    """One download a coordinator can make: a URL name, its arguments besides the slug, an
+    optional query string, and the file name it is saved under (`{slug}` filled in)."""
+
+    label: str
+    url_name: str
+    file: str
+    kwargs: dict = field(default_factory=dict)
+    query: str = ""
+
+    def url(self, slug: str) -> str:
+        return reverse(self.url_name, kwargs={"slug": slug, **self.kwargs}) + self.query
+
+
+#: Every download: the API's exports (studies/api/exports.py) and the pages' downloads
+#: (viewer/dashboard_views.py, viewer/setup_views.py).
+DOWNLOADS = (
+    Download("api-reference-csv", "studies-export-reference", "{slug}-reference_set.csv",
+             {"fmt": "csv"}),
+    Download("api-reference-json", "studies-export-reference", "{slug}-reference_set.json",
+             {"fmt": "json"}),
+    Download("api-events", "studies-export-events", "{slug}-events.csv"),
+    Download("api-adjudication-events", "studies-export-events",
+             "{slug}-adjudication_events.csv", query="?kind=adjudication"),
+    Download("api-analysis-table", "studies-export-table", "{slug}-consensus.csv",
+             {"name": "consensus"}),
+    Download("api-archive", "studies-export-archive", "{slug}-archive.zip"),
+    Download("dashboard-table-csv", "viewer-dashboard-csv", "{slug}-consensus.csv",
+             {"name": "consensus"}),
+    Download("html-report", "viewer-report", "{slug}-report.html", query="?download=1"),
+    Download("pdf-report", "viewer-report-pdf", "{slug}-report.pdf"),
+    Download("protocol-csv", "viewer-study-protocol-export", "{slug}-protocol-v1.csv",
+             {"fmt": "csv"}),
+    Download("protocol-json", "viewer-study-protocol-export", "{slug}-protocol-v1.json",
+             {"fmt": "json"}),
+)
+
+_ATTACHMENT = re.compile(r'attachment; filename="(?P<name>[^"]+)"')
+
+
+def signed_in(user) -> Client:
+    client = Client(REMOTE_ADDR=CLIENT_ADDRESS)
+    client.force_login(user)
+    return client
+
+
+def exports_after(pk: int):
+    return AuditEntry.objects.filter(kind=AuditKind.EXPORT, pk__gt=pk)
+
+
+def last_pk() -> int:
+    return AuditEntry.objects.order_by("-pk").values_list("pk", flat=True).first() or 0
+
+
+@pytest.mark.parametrize("download", DOWNLOADS, ids=lambda d: d.label)
+def test_every_download_records_one_export_entry_with_the_user_study_and_file(
+    analysed, cast, download
+) -> None:
+    study, _ = analysed
+    client = signed_in(cast["pi"])
+    before = last_pk()
+    response = client.get(download.url(study.slug))
+    assert response.status_code == 200, response.content[:300]
+    saved_as = _ATTACHMENT.fullmatch(response.get("Content-Disposition", ""))
+    assert saved_as, f"not an attachment: {response.get('Content-Disposition')!r}"
+    assert saved_as["name"] == download.file.format(slug=study.slug)
+    entry = exports_after(before).get()  # exactly one
+    assert entry.actor == cast["pi"] and entry.username == "pi"
+    assert entry.study == study and entry.study_slug == study.slug
+    assert entry.detail == {"file": saved_as["name"]}
+    assert entry.ip_address == CLIENT_ADDRESS
+
+
+def test_the_download_list_covers_every_api_export() -> None:
+    """Walks the URL conf, so a new API export fails here until it is added to DOWNLOADS."""
+    api_exports = {
+        name
+        for name in (leaf.name.rsplit(":", 1)[-1] for leaf in leaves())
+        if name.startswith("studies-export-")
+    }
+    assert api_exports, "the URL conf has no studies-export-* names"
+    missing = api_exports - {d.url_name for d in DOWNLOADS}
+    assert not missing, f"add these API exports to DOWNLOADS: {sorted(missing)}"
+
+
+def test_the_coordinators_audit_page_lists_a_page_download(analysed, cast) -> None:
+    study, _ = analysed
+    client = signed_in(cast["pi"])
+    url = reverse("viewer-dashboard-csv", kwargs={"slug": study.slug, "name": "consensus"})
+    assert client.get(url).status_code == 200
+    page = client.get(reverse("viewer-study-audit", args=[study.slug]))
+    assert page.status_code == 200
+    rows = re.findall(r'<tr class="audit-export">(.*?)</tr>', page.content.decode(), re.S)
+    assert len(rows) == 1, rows
+    assert "Export" in rows[0] and "<code>pi</code>" in rows[0]
+    assert f"file: {study.slug}-consensus.csv" in rows[0]
+    assert CLIENT_ADDRESS in rows[0]
+
+
+def test_a_refused_or_missing_download_and_an_on_screen_report_record_no_export(
+    analysed, cast
+) -> None:
+    study, _ = analysed
+    before = last_pk()
+    for name, status in (("reader_a", 403), ("outsider", 404)):
+        client = signed_in(cast[name])
+        for download in DOWNLOADS:
+            response = client.get(download.url(study.slug))
+            assert response.status_code == status, (name, download.label)
+    pi = signed_in(cast["pi"])
+    for url_name in ("viewer-dashboard-csv", "studies-export-table"):
+        missing = reverse(url_name, kwargs={"slug": study.slug, "name": "no_such_table"})
+        assert pi.get(missing).status_code == 404, url_name
+    on_screen = pi.get(reverse("viewer-report", kwargs={"slug": study.slug}))
+    assert on_screen.status_code == 200 and "Content-Disposition" not in on_screen
+    assert not exports_after(before).exists()
