@@ -82,10 +82,10 @@ def canonical(phantom_files):
     return np.asanyarray(image.dataobj), image.affine
 
 
-@pytest.fixture
-def phantom_study(transactional_db, cast, phantom_files):
-    """An open study with the phantom protocol (6 landmarks, one may be absent), one case,
-    read by reader_a; returns the Read."""
+def build_phantom_study(cast, phantom_files, reader, modality: str | None = None):
+    """An open study with the phantom protocol (6 landmarks, one may be absent) and one case
+    (the session's phantom files, stored as `modality`, the phantom's own by default), read
+    by `reader` alone; returns the Read."""
     from datetime import timedelta
 
     from django.utils import timezone
@@ -118,11 +118,21 @@ def phantom_study(transactional_db, cast, phantom_files):
         ],
     )
     cases.create_case(
-        study, stored, checksum=uuid.uuid4().hex, label="phantom", modality=phantom.volume.modality
+        study,
+        stored,
+        checksum=uuid.uuid4().hex,
+        label="phantom",
+        modality=modality or phantom.volume.modality,
     )
-    studies.add_member(study, cast["reader_a"], Role.READER)
+    studies.add_member(study, reader, Role.READER)
     studies.open_study(study, now=timezone.now() - timedelta(days=1))
-    return Read.objects.get(study=study, reader=cast["reader_a"])
+    return Read.objects.get(study=study, reader=reader)
+
+
+@pytest.fixture
+def phantom_study(transactional_db, cast, phantom_files):
+    """The phantom study read by reader_a; returns the Read."""
+    return build_phantom_study(cast, phantom_files, cast["reader_a"])
 
 
 def log_in(page, live_server, user) -> None:

@@ -56,10 +56,11 @@ def clicked_voxel(box, data_shape, zooms, x: float, y: float, k: int) -> np.ndar
 
 
 def test_it_places_every_landmark_by_clicks_at_the_clicked_world_position(
-    page, live_server, phantom_study, phantom_files, canonical, cast
+    page, live_server, cast, phantom_files, canonical, django_user_model
 ):
-    """A reader logs in, places all six phantom landmarks by clicking on them, reloads, sees
-    them again and submits.
+    """A demo-style reader logs in through the login form, opens the read by clicking it on
+    the worklist, places all six phantom landmarks by clicking on them, reloads, sees them
+    again and submits.
 
     Reference: the world position of each clicked pixel is computed with nibabel's
     `apply_affine` from the case's canonical NIfTI affine (nibabel: voxel centres at integer
@@ -68,16 +69,29 @@ def test_it_places_every_landmark_by_clicks_at_the_clicked_world_position(
     mapping, within 0.02 voxel.
     """
     from studies.models import PlacementEvent, Read
+    from studies.services.demo import DEMO_PASSWORD, NEWCOMER
+    from tests.browser.conftest import build_phantom_study
 
+    username, full_name = NEWCOMER
+    first, last = full_name.split(" ", 1)
+    reader = django_user_model.objects.create_user(
+        username=username, password=DEMO_PASSWORD, first_name=first, last_name=last
+    )
+    phantom_study = build_phantom_study(cast, phantom_files, reader)
     data, affine = canonical
     _, phantom = phantom_files
     zooms = np.sqrt((affine[:3, :3] ** 2).sum(axis=0))
     inverse = np.linalg.inv(affine)
 
-    page.goto(f"{live_server.url}/login/?next=/read/{phantom_study.code}/")
-    page.fill("#id_username", "reader_a")
-    page.fill("#id_password", "pw-reader_a")
+    page.goto(f"{live_server.url}/login/")
+    page.fill("#id_username", username)
+    page.fill("#id_password", DEMO_PASSWORD)
     page.click("button[type=submit]")
+    page.wait_for_url(f"{live_server.url}/")
+    row = page.locator(".worklist .read-row").filter(has_text=phantom_study.pseudonym)
+    assert row.count() == 1
+    row.get_by_role("link", name=phantom_study.pseudonym).click()
+    page.wait_for_url(f"{live_server.url}/read/{phantom_study.code}/")
     wait_js(page, "performance.getEntriesByName('viewer:full-ready').length > 0", timeout=20000)
 
     book = page.evaluate("cairnRead.book.landmarks.map(l => l.code)")
@@ -122,6 +136,40 @@ def test_it_places_every_landmark_by_clicks_at_the_clicked_world_position(
     read.refresh_from_db()
     assert read.status == "submitted"
     assert "locked" in page.inner_text("#rd-notice")
+
+
+def test_it_lists_every_landmark_with_its_description_on_a_smaller_second_line(
+    page, live_server, phantom_study, cast
+):
+    """Every landmark of the protocol is listed with its own description (not only the
+    active one), each on a line in a smaller type than the landmark's name, in protocol
+    order. Reference: the phantom protocol's texts (studies.imaging.phantom)."""
+    from studies.imaging.phantom import PHANTOM_LANDMARKS
+    from tests.browser.conftest import log_in
+
+    log_in(page, live_server, cast["reader_a"])
+    open_read(page, live_server, phantom_study)
+    rows = page.locator("#lm-list .lm-row")
+    assert rows.count() == len(PHANTOM_LANDMARKS)
+    for index, landmark in enumerate(PHANTOM_LANDMARKS):
+        row = rows.nth(index)
+        assert landmark.name in row.inner_text()
+        about = row.locator(".lm-about")
+        assert about.inner_text() == landmark.description
+        assert about.is_visible()
+        sizes = about.evaluate(
+            "(el) => [el, el.parentNode.querySelector('.lm-name')]"
+            ".map((e) => parseFloat(getComputedStyle(e).fontSize))"
+        )
+        assert sizes[0] < sizes[1]
+        name_box = row.locator(".lm-name").bounding_box()
+        about_box = about.bounding_box()
+        assert about_box["y"] >= name_box["y"] + name_box["height"] - 1  # below the name
+    page.keyboard.press("n")  # another landmark active: every description still listed
+    wait_js(page, "document.querySelector('#lm-list [aria-current]').dataset.index === '1'")
+    assert page.locator("#lm-list .lm-about").all_inner_texts() == [
+        lm.description for lm in PHANTOM_LANDMARKS
+    ]
 
 
 def test_it_refuses_to_submit_an_incomplete_read_and_names_what_is_missing(
@@ -201,3 +249,28 @@ def test_it_moves_a_marker_by_dragging_and_undoes_the_move(
     assert np.allclose(moved, apply_affine(affine, drop), atol=0.02 * zooms.max())
     first = [events[0].x_mm, events[0].y_mm, events[0].z_mm]
     assert np.allclose([events[2].x_mm, events[2].y_mm, events[2].z_mm], first, atol=1e-9)
+
+
+def test_a_double_click_makes_the_pane_large_and_places_once_not_twice(
+    page, live_server, phantom_study, cast
+):
+    """Double-click is listed on the page as "make this the large pane" (keys.js, the
+    shortcut list). In place mode its first click is a click and places at once (every
+    action is sent straight away); its second click must not add a second event."""
+    from studies.models import PlacementEvent
+    from tests.browser.conftest import log_in
+
+    log_in(page, live_server, cast["reader_a"])
+    open_read(page, live_server, phantom_study)
+    assert "make this the large pane" in page.inner_text("#rd-keys")
+
+    stored = []
+    for plane, (fx, fy) in (("coronal", (0.5, 0.5)), ("axial", (0.35, 0.6))):
+        box = pane_box(page, plane)  # the second spot is off any marker already drawn
+        page.mouse.dblclick(box["x"] + fx * box["width"], box["y"] + fy * box["height"])
+        wait_js(page, f"document.getElementById('rd-stage').dataset.main === '{plane}'")
+        page.wait_for_timeout(300)  # let a wrongly placed second click reach the queue
+        wait_js(page, "cairnRead.queue.pending.length === 0")
+        stored.append(PlacementEvent.objects.filter(read=phantom_study).count())
+    assert stored == [1, 2]  # one event per double-click
+    assert page.evaluate("cairnRead.book.get('ORB-L') !== null")

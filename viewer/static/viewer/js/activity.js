@@ -15,6 +15,7 @@ export class ActivityClock {
     this.url = url;
     this.stored = initial;
     this.unsent = 0;
+    this.inFlight = 0; // seconds in a report not yet answered (still counted in the total)
     this.onChange = onChange;
     this.lastInput = performance.now();
     this.lastTick = performance.now();
@@ -51,7 +52,7 @@ export class ActivityClock {
   }
 
   total() {
-    return this.stored + this.unsent;
+    return this.stored + this.unsent + this.inFlight;
   }
 
   /** Send the unsent seconds (keepalive when the page is going away). */
@@ -61,6 +62,7 @@ export class ActivityClock {
     const seconds = Math.min(MAX_REPORT_S, Math.round(this.unsent * 10) / 10);
     this.sending = true;
     this.unsent -= seconds;
+    this.inFlight = seconds;
     try {
       const { status } = await postJson(this.url, { seconds }, { keepalive: leaving });
       if (status === 200) this.stored += seconds;
@@ -69,6 +71,7 @@ export class ActivityClock {
     } catch {
       this.unsent += seconds;
     } finally {
+      this.inFlight = 0;
       this.sending = false;
     }
   }

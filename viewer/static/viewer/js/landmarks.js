@@ -176,17 +176,24 @@ export function statusText(placement) {
   return placement.state === "absent" ? `not visible${conf}` : `placed${conf}`;
 }
 
-/** Render the landmark list and the active landmark's card into `listEl` and `cardEl`. */
+/**
+ * Render the landmark list (every landmark with its description on a second, smaller line)
+ * and the active landmark's card (where it is, its actions, confidence) into `listEl` and
+ * `cardEl`.
+ */
 export function renderPanel(book, listEl, cardEl, worldText) {
   listEl.innerHTML = book.landmarks
     .map((lm, index) => {
       const p = book.get(lm.code);
       const state = p ? p.state : "todo";
       const current = index === book.active ? ' aria-current="true"' : "";
+      const about = lm.description
+        ? `<span class="lm-about" data-testid="lm-description">${escapeHtml(lm.description)}</span>`
+        : "";
       return `<li><button type="button" class="lm-row lm-${state}" data-index="${index}"${current}>
         <span class="lm-badge" style="--lm-colour:${book.colourOf(lm.code)}">${index + 1}</span>
-        <span class="lm-name">${escapeHtml(lm.name)}<small>${escapeHtml(lm.code)}</small></span>
-        <span class="lm-state">${statusText(p)}</span></button></li>`;
+        <span class="lm-name">${escapeHtml(lm.name)} <small>${escapeHtml(lm.code)}</small></span>
+        <span class="lm-state">${statusText(p)}</span>${about}</button></li>`;
     })
     .join("");
   const lm = book.current;
@@ -203,7 +210,6 @@ export function renderPanel(book, listEl, cardEl, worldText) {
   cardEl.innerHTML = `
     <h3><span class="lm-badge" style="--lm-colour:${book.colourOf(lm.code)}">${book.active + 1}</span>
       ${escapeHtml(lm.name)}</h3>
-    <p class="lm-desc">${escapeHtml(lm.description || "No description.")}</p>
     <p class="lm-where" data-testid="active-where">${escapeHtml(where)}</p>
     <div class="lm-actions">
       <button type="button" data-act="place-here"${off}>Place at crosshair</button>

@@ -238,6 +238,9 @@ export class Pane {
     ctx.strokeText(`${mm} mm`, x, y - 9);
     ctx.fillText(`${mm} mm`, x, y - 9);
     ctx.restore();
+    // The bar as text too (assistive technology and tests): its length in mm and CSS px.
+    const scale = `${mm} mm = ${px.toFixed(2)} px`;
+    if (this.el.dataset.scale !== scale) this.el.dataset.scale = scale;
   }
 
   updateCaption() {
@@ -282,7 +285,9 @@ export class Pane {
     });
     el.addEventListener("pointerleave", () => this.viewer.hover(null));
     el.addEventListener("wheel", (e) => this.onWheel(e), { passive: false });
+    el.addEventListener("click", (e) => this.onClick(e));
     el.addEventListener("dblclick", (e) => {
+      // A double-click makes this the large pane; its second click places nothing (onClick).
       e.preventDefault();
       this.viewer.setMain(this.plane);
     });
@@ -299,6 +304,7 @@ export class Pane {
     const [x, y] = this.point(e);
     focusWithoutScroll(this.el);
     this.el.setPointerCapture(e.pointerId);
+    this.pressed = null;
     const base = { x0: x, y0: y, x, y, moved: false };
     if (e.button === 2) {
       this.drag = { ...base, kind: "window", start: { ...v.window } };
@@ -356,12 +362,23 @@ export class Pane {
     if (!d) return;
     const [x, y] = this.point(e);
     if (d.kind === "press") {
-      const ijk = this.voxelAt(x, y);
-      if (ijk) this.viewer.placeActive(ijk);
+      // Placed by the click event that follows, which knows the click count.
+      this.pressed = { ijk: this.voxelAt(x, y), x, y };
     } else if (d.kind === "marker") {
       if (d.moved && d.ijk) this.viewer.commitMarker(d.code, d.ijk);
       else this.viewer.cancelMarker(d.code);
     }
+  }
+
+  /**
+   * A plain click in place mode places the active landmark at once (the event is sent
+   * straight away); the second click of a double (or triple) click places nothing.
+   */
+  onClick(e) {
+    const pressed = this.pressed;
+    this.pressed = null;
+    if (!pressed || e.button !== 0 || e.detail > 1) return;
+    if (pressed.ijk) this.viewer.placeActive(pressed.ijk);
   }
 
   onWheel(e) {

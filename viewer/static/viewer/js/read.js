@@ -59,7 +59,7 @@ async function start() {
   const page = { detail, viewer: null, book: null, queue: null, clock: null };
   window.cairnRead = page;
 
-  const queue = new EventQueue(config.api.events, detail.code, detail.version, {
+  const queue = await EventQueue.open(config.api.events, detail.code, detail.version, {
     onState: (state, pending) => showSave(state, pending),
     onAck: (event, data) => {
       const later = queue.pending.some((e) => e.landmark === event.landmark);
@@ -69,10 +69,22 @@ async function start() {
       book.locked = true;
       root.dataset.state = "conflict";
       notice(
-        `<strong>This read was changed in another tab or on another machine.</strong> ${escape(message)}. ` +
-          `${lost.length} change(s) from this page were not saved. ` +
+        `<strong>This read was changed in another tab or on another machine.</strong> ` +
+          `${countText(lost.length)} from this browser could not be applied and ` +
+          `${lost.length === 1 ? "was" : "were"} not saved (${escape(actionList(book, lost))}); ` +
+          `nothing stored was overwritten. The panes now show the read as stored. ` +
+          `<span class="muted">Server: ${escape(message)}.</span> ` +
           `<button type="button" data-act="reload">Reload the read</button>`,
         "bad",
+      );
+      showStored(page);
+    },
+    onAdopt: (events) => {
+      // Another tab of this read closed with unsent changes: this page sends them now.
+      for (const event of events) replay(book, event);
+      if (root.dataset.state !== "conflict") notice(
+        `${countText(events.length)} left by a closed tab of this read ` +
+          `(${escape(actionList(book, events))}) ${events.length === 1 ? "is" : "are"} being saved from this tab.`,
       );
       viewer.changed({ overlay: true, panel: true });
     },
@@ -87,23 +99,34 @@ async function start() {
   const book = new LandmarkBook(detail.landmarks, placements, (event) => queue.push(event), () =>
     viewer.changed({ overlay: true, panel: true }),
   );
-  for (const event of queue.pending) {
-    const next = applyLocal(book.get(event.landmark), event);
-    if (next) book.placements.set(event.landmark, next);
-    else book.placements.delete(event.landmark);
-  }
+  for (const event of queue.pending) replay(book, event);
   book.locked = locked;
   page.book = book;
 
   const viewer = new Viewer(root, detail.volume, book);
   page.viewer = viewer;
   wire(viewer, book, queue, page);
+  page.asideShown = [];
   if (locked) {
     root.dataset.state = "submitted";
     notice(`This read was submitted and is locked. <a href="${config.home}">Back to the worklist</a>`, "ok");
   }
+  const aside = queue.setAsideEvents();
+  page.asideShown = aside;
+  if (aside.length) {
+    notice(
+      `${countText(aside.length)} made earlier in this browser could not be applied without ` +
+        `overwriting changes made to this read elsewhere, and ${aside.length === 1 ? "was" : "were"} ` +
+        `not saved (${escape(actionList(book, aside))}). What you see is the read as stored. ` +
+        `<button type="button" data-act="dismiss-aside">Dismiss this note</button>`,
+      "warn",
+    );
+  }
   if (queue.pending.length) {
-    notice(`${queue.pending.length} change(s) from an earlier visit were not yet saved; sending them now.`);
+    if (!aside.length) {
+      const closed = queue.adoptedAtOpen.length ? ` (${queue.adoptedAtOpen.length} of them from a closed tab)` : "";
+      notice(`${queue.pending.length} change(s) from an earlier visit were not yet saved${closed}; sending them now.`);
+    }
     queue.flush();
   }
   if (!locked) {
@@ -215,6 +238,10 @@ function wire(viewer, book, queue, page) {
   viewer.onSubmitAsked = () => askSubmit(page);
   root.addEventListener("click", (e) => {
     if (e.target.closest("[data-act='reload']")) window.location.reload();
+    if (e.target.closest("[data-act='dismiss-aside']")) {
+      queue.discardSetAside(page.asideShown);
+      $("#rd-notice").hidden = true;
+    }
   });
   bindKeys(root, viewer);
   viewer.panes.axial.el.focus({ preventScroll: true });
@@ -280,6 +307,7 @@ async function resync() {
   if (!(await page.queue.drained(15000))) return;
   try {
     const detail = await getJson(config.api.detail);
+    if (page.queue.pending.length || page.queue.sending) return; // a newer change is on its way
     page.book.placements.clear();
     for (const p of detail.placements) page.book.acknowledge(p.landmark, p, false);
     page.queue.version = detail.version;
@@ -287,6 +315,37 @@ async function resync() {
   } catch {
     // The next change will retry; the notice already tells the reader.
   }
+}
+
+/** After a conflict: show the placements as the server has them (the page stays locked). */
+async function showStored(page) {
+  try {
+    const detail = await getJson(config.api.detail);
+    page.book.placements.clear();
+    for (const p of detail.placements) page.book.acknowledge(p.landmark, p, false);
+  } catch {
+    // Offline again: the notice already says what happened; a reload shows the stored read.
+  }
+  page.viewer.changed({ overlay: true, panel: true });
+}
+
+/** Show a queued (not yet stored) event on the page, as after a reload. */
+function replay(book, event) {
+  const next = applyLocal(book.get(event.landmark), event);
+  if (next) book.placements.set(event.landmark, next);
+  else book.placements.delete(event.landmark);
+}
+
+function countText(n) {
+  return n === 1 ? "1 unsaved action" : `${n} unsaved actions`;
+}
+
+const KIND_TEXT = { placed: "placed", moved: "moved", removed: "removed", marked_absent: "marked not visible" };
+
+/** "placed Left orb centre, moved Midline bead" for a list of events. */
+function actionList(book, events) {
+  const name = (code) => (book.landmarks.find((lm) => lm.code === code) || { name: code }).name;
+  return events.map((e) => `${KIND_TEXT[e.kind] || e.kind} ${name(e.landmark)}`).join(", ");
 }
 
 function announceOtherTabs(code) {

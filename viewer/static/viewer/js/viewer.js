@@ -2,12 +2,15 @@
 // whether it comes from the mouse, the keyboard or a button. Event handlers only change
 // state and mark what needs drawing; drawing happens once per animation frame.
 
-import { PLANES, invertAffine, obliqueDegrees, spacingOf, voxelToWorld, worldToVoxel } from "./coords.js";
+import {
+  PLANES, invertAffine, obliqueDegrees, spacingOf, voxelToSlice, voxelToWorld, worldToVoxel,
+} from "./coords.js";
 import { Pane } from "./panes.js";
 import { buildLut } from "./render.js";
 import { percentileWindow } from "./volume.js";
 
 const PANE_ORDER = ["axial", "coronal", "sagittal"];
+
 
 // Common CT windows as (centre, width) in HU (common practice; exact values vary by site).
 const CT_PRESETS = [
@@ -270,8 +273,12 @@ export class Viewer {
     if (!p || p.state !== "placed") return;
     const ijk = this.toVoxel(p.xyz);
     this.setCursor(ijk);
-    // Bring the point into view in every pane.
-    for (const plane of PANE_ORDER) this.panes[plane].centre = null;
+    // Bring the point into view in every pane: a fitted pane shows the whole slice; a
+    // zoomed one keeps its zoom and is centred on the point.
+    for (const plane of PANE_ORDER) {
+      const pane = this.panes[plane];
+      pane.centre = pane.zoom > 1 ? voxelToSlice(plane, this.shape, this.clampVoxel(ijk)) : null;
+    }
     this.changed({ images: true });
   }
 
