@@ -155,10 +155,11 @@ def _writable(read: Read, user) -> Read:
     Locking the study or case rows too would make every event of every reader queue
     behind one lock.
     """
-    fresh = (Read.objects.select_for_update(of=("self",)).filter(pk=read.pk)
-             .values(*_LOCKED_FIELDS, "study__status").first())
-    if fresh is None:
-        raise ServiceError("this read no longer exists")
+    try:
+        fresh = (Read.objects.select_for_update(of=("self",))
+                 .values(*_LOCKED_FIELDS, "study__status").get(pk=read.pk))
+    except Read.DoesNotExist:
+        raise ServiceError("this read no longer exists") from None
     study_status = fresh.pop("study__status")
     for name, value in fresh.items():
         setattr(read, name, value)

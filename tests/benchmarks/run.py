@@ -30,6 +30,8 @@ def main() -> int:
         prefixes = (prefix + ".", *EXTRA_PREFIXES.get(prefix, ()))
         if only and not any(p.startswith(only) or only.startswith(p) for p in prefixes):
             continue
+        # ONLY=<script prefix> keeps all of that script's figures (viewer: also api.*).
+        wanted = prefixes if only.rstrip(".") == prefix else (only,)
         env = {**os.environ, "PYTHONPATH": str(ROOT), "CAIRN_BENCH_ONLY": only}
         result = subprocess.run(
             [sys.executable, str(script)], cwd=ROOT, env=env, capture_output=True, text=True
@@ -39,7 +41,7 @@ def main() -> int:
                 figure = json.loads(line)
             except json.JSONDecodeError:
                 continue
-            if isinstance(figure, dict) and str(figure.get("name", "")).startswith(only):
+            if isinstance(figure, dict) and str(figure.get("name", "")).startswith(wanted):
                 print(json.dumps(figure), flush=True)
         if result.returncode != 0:
             failed += 1

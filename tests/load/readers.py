@@ -78,8 +78,9 @@ class SimulatedReader(threading.Thread):
 
     def __init__(self, base_url: str, session: requests.Session, record: Record, *,
                  stop_at: float, drain_until: float, seed: int,
-                 think_s: tuple[float, float] = (0.3, 1.0)) -> None:
+                 think_s: tuple[float, float] = (0.3, 1.0), start_at: float = 0.0) -> None:
         super().__init__(daemon=True)
+        self.start_at = start_at  # monotonic seconds; the reader waits until then
         self.base, self.session, self.record = base_url, session, record
         self.stop_at, self.drain_until = stop_at, drain_until
         self.rng = random.Random(seed)
@@ -145,6 +146,7 @@ class SimulatedReader(threading.Thread):
     # -- behaviour ------------------------------------------------------------------------
 
     def run(self) -> None:
+        time.sleep(max(0.0, self.start_at - time.monotonic()))
         try:
             worklist = self.patiently("worklist", "GET", "/api/v1/worklist/").json()["reads"]
             for read in worklist:

@@ -148,9 +148,13 @@ class Stack:
                              self.env, self.tmp / "redis.log")
         self.web = Process("gunicorn", [str(bin_dir / "gunicorn"), "cairn.wsgi", "--bind",
                                         f"127.0.0.1:{WEB_PORT}", "--workers", str(web_workers),
-                                        "--timeout", "120", "--graceful-timeout", "5", "--preload"],
+                                        "--timeout", "120", "--graceful-timeout", "5", "--preload",
+                                        "--access-logfile", str(self.tmp / "access.log"),
+                                        "--access-logformat", "%(m)s %(U)s %(s)s %(D)s"],
                            self.env, self.tmp / "gunicorn.log")
-        self.worker = Process("celery", [sys.executable, "-m", "celery", "-A", "cairn", "worker",
+        # nice 10: background analysis yields the CPU to web requests on this shared host.
+        self.worker = Process("celery", ["nice", "-n", "10", sys.executable, "-m", "celery",
+                                         "-A", "cairn", "worker",
                                          "--concurrency", "1", "--loglevel", "INFO",
                                          "--without-gossip", "--without-mingle"],
                               self.env, self.tmp / "celery.log")

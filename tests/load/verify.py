@@ -32,6 +32,22 @@ def event_counts(stack: Stack, record: Record) -> dict[str, int]:
     }
 
 
+def server_event_times_ms(stack: Stack) -> list[float]:
+    """Time gunicorn spent on each event POST (its access log, %(D)s in microseconds).
+
+    Measured inside the web worker, from reading the request to the end of the response: it
+    leaves out the wait in the listen queue and the client's own time, so the gap between
+    this and the client's figure is queueing.
+    """
+    log = stack.tmp / "access.log"
+    times = []
+    for line in log.read_text().splitlines() if log.exists() else []:
+        parts = line.split()
+        if len(parts) == 4 and parts[0] == "POST" and parts[1].endswith("/events/"):
+            times.append(int(parts[3]) / 1e3)
+    return times
+
+
 def rebuild_check(stack: Stack) -> int:
     """0 when `rebuild_placements --check` finds no mismatch, else its exit code."""
     return stack.manage("rebuild_placements", "--check").returncode
