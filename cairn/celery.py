@@ -15,28 +15,49 @@ app.config_from_object("django.conf:settings", namespace="CELERY")
 app.autodiscover_tasks()
 
 
-class ResendDeferredRuns(bootsteps.StartStopStep):
-    """Each time a worker (re)connects to the broker, send the runs that could not be sent.
+class SendWaitingRuns(bootsteps.StartStopStep):
+    """Send the analysis runs that wait in the database, from every worker.
 
-    A run requested while the broker was down is stored as pending and marked deferred;
-    this is what makes it happen once the broker is back, with nobody having to ask again.
+    On each (re)connection to the broker, and every SEND_EVERY_S seconds after: runs asked
+    for while the broker was down (deferred) and runs whose debounce has passed
+    (studies.services.analysis_runs.send_waiting_runs). So a deferred run happens once the
+    broker is back and a debounced one on time, with nobody having to ask again.
     """
 
     requires = {"celery.worker.consumer.connection:Connection"}
+    SEND_EVERY_S = 5.0
+
+    def __init__(self, parent, **kwargs) -> None:
+        super().__init__(parent, **kwargs)
+        self.tick = None
 
     def start(self, consumer) -> None:
-        from studies.services.analysis_runs import resend_all_deferred
+        self.send()
+        timer = getattr(consumer, "timer", None)
+        if timer is not None and self.tick is None:
+            self.tick = timer.call_repeatedly(self.SEND_EVERY_S, self.send)
+
+    def stop(self, consumer) -> None:
+        if self.tick is not None:
+            self.tick.cancel()
+            self.tick = None
+
+    def send(self) -> None:
+        from django.db import close_old_connections
+
+        from studies.services.analysis_runs import send_waiting_runs
 
         try:
-            sent = resend_all_deferred()
+            close_old_connections()  # a long-lived process: drop a connection gone stale
+            sent = send_waiting_runs()
         except Exception:
-            log.exception("could not resend deferred analysis runs")
+            log.exception("could not send the waiting analysis runs")
             return
         if sent:
-            log.info("resent %d deferred analysis run(s)", sent)
+            log.info("sent %d waiting analysis run(s)", sent)
 
 
-app.steps["consumer"].add(ResendDeferredRuns)
+app.steps["consumer"].add(SendWaitingRuns)
 
 
 def _check_settings_on_worker_start() -> None:

@@ -74,8 +74,8 @@ class Figure:
 
 def run_status(study: Study) -> dict:
     """The latest run's state for the live progress bar (JSON-serialisable)."""
-    # A run whose message could not reach the broker is sent again while someone watches.
-    analysis_runs.resend_deferred(study)
+    # A deferred or debounced run that is due is sent while someone watches.
+    analysis_runs.send_waiting_runs(study)
     run = latest_run(study)
     if run is None:
         return {"status": "none", "progress": 0.0, "message": "no analysis has been run yet"}

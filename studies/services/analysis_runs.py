@@ -18,8 +18,9 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.db import transaction
-from django.db.models import F
+from django.db.models import F, Q
 from django.utils import timezone
 
 from .. import analysis
@@ -34,6 +35,8 @@ log = logging.getLogger(__name__)
 STALE_AFTER = timedelta(minutes=1)
 #: progress_message prefix of a waiting run whose message could not reach the broker.
 DEFERRED = "deferred:"
+#: progress_message prefix of a run that waits out the debounce before it is sent.
+DEBOUNCED = "waiting:"
 PLACEMENT_COLUMNS = [
     "case", "landmark", "reader", "read", "x_mm", "y_mm", "z_mm", "absent", "placed_at",
 ]
@@ -80,21 +83,26 @@ def fingerprint(table: pd.DataFrame, parameters: dict, version: str) -> str:
 
 
 def request_analysis(study: Study, *, delay_s: float = 0.0) -> AnalysisRun:
-    """Ask for an analysis of the study's current placements; enqueue it after commit.
+    """Ask for an analysis of the study's current placements.
 
-    Returns the waiting run when one is queued already, the stored run when the inputs
-    have not changed since it was computed, else a new pending run. `delay_s` debounces:
-    the run starts no sooner than that, so reads submitted meanwhile fold into it (a
-    submitted read asks with settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS). Asking with no
-    delay while a delayed run waits sends it again at once; the task is idempotent, so
-    whichever message comes first computes it and the other finds it finished.
+    Returns the waiting run when one waits already, the stored run when the inputs have not
+    changed since it was computed, else a new pending run. With `delay_s` (a submitted read
+    asks with settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS) a new run is not sent at once: it
+    waits in the database, marked DEBOUNCED, and `send_waiting_runs` sends it once the delay
+    has passed, so reads submitted meanwhile fold into it. Asking with no delay sends a
+    waiting run at once.
+
+    The delay lives in the database, not in the broker: a message held back by the broker
+    (an ETA task) sits unacknowledged in the worker, and kombu's Redis transport crashed the
+    worker when it restored such a message after losing the broker (measured here with
+    `make faulttest`, kombu 5.7.0).
     """
     with transaction.atomic():
         Study.objects.select_for_update().filter(pk=study.pk).first()
         waiting = study.analysis_runs.filter(status=RunStatus.PENDING).first()
         if waiting is not None:
             if waiting.progress_message.startswith(DEFERRED) or delay_s <= 0:
-                transaction.on_commit(lambda: enqueue(waiting.pk))
+                transaction.on_commit(lambda: send(waiting.pk))
             return waiting
         parameters = parameters_of(study)
         version = code_version()
@@ -104,41 +112,55 @@ def request_analysis(study: Study, *, delay_s: float = 0.0) -> AnalysisRun:
             return done.first()
         run = AnalysisRun.objects.create(study=study, parameters=parameters, input_digest=digest,
                                          code_version=version)
-        transaction.on_commit(lambda: enqueue(run.pk, delay_s=delay_s))
+        if delay_s > 0:
+            due = timezone.localtime(run.requested_at + timedelta(seconds=delay_s))
+            run.progress_message = (f"{DEBOUNCED} starts about {due:%H:%M:%S}, so reads "
+                                    f"submitted meanwhile join this run")
+            run.save(update_fields=["progress_message"])
+        else:
+            transaction.on_commit(lambda: send(run.pk))
     return run
 
 
-def enqueue(run_pk: int, *, delay_s: float = 0.0) -> bool:
-    """Send a run to the workers; when the broker is down, say so on the run and go on."""
+def send(run_pk: int) -> bool:
+    """Send a pending run to the workers now; True if this call sent it.
+
+    The run is first marked queued by a conditional update, so two callers (two workers'
+    timers, a poll and a "run now") send it once. When the broker cannot be reached the run
+    is marked DEFERRED, with a visible message, and is sent again later.
+    """
     from ..tasks import compute_analysis
 
+    marked = AnalysisRun.objects.filter(pk=run_pk, status=RunStatus.PENDING).exclude(
+        progress_message="queued").update(progress_message="queued")
+    if not marked:
+        return False
     try:
-        compute_analysis.apply_async(kwargs={"run_pk": run_pk},
-                                     countdown=delay_s if delay_s > 0 else None)
+        compute_analysis.apply_async(kwargs={"run_pk": run_pk})
     except Exception as error:
         log.warning("analysis run %s deferred: broker unreachable (%s)", run_pk, error)
         AnalysisRun.objects.filter(pk=run_pk).update(
             progress_message=f"{DEFERRED} the task queue is unreachable; it will be sent again")
         return False
-    AnalysisRun.objects.filter(pk=run_pk, progress_message__startswith=DEFERRED).update(
-        progress_message="queued")
     return True
 
 
-def resend_all_deferred() -> int:
-    """Send again every waiting run whose message never reached the broker; return how many."""
-    waiting = AnalysisRun.objects.filter(
-        status=RunStatus.PENDING, progress_message__startswith=DEFERRED
-    ).values_list("pk", flat=True)
-    return sum(enqueue(pk) for pk in list(waiting))
+def send_waiting_runs(study: Study | None = None, now=None) -> int:
+    """Send every run that waits and is due; return how many were sent.
 
-
-def resend_deferred(study: Study) -> bool:
-    """Send again a waiting run whose message never reached the broker; True if sent now."""
-    waiting = study.analysis_runs.filter(
-        status=RunStatus.PENDING, progress_message__startswith=DEFERRED
-    ).first()
-    return waiting is not None and enqueue(waiting.pk)
+    Due: a DEFERRED run (its message never reached the broker), or a DEBOUNCED run whose
+    debounce (settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS since it was asked for) has passed.
+    Called by each worker when it (re)connects and every few seconds after (cairn/celery.py),
+    and by the dashboard's progress poll for its study.
+    """
+    now = now or timezone.now()
+    debounce = timedelta(seconds=settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS)
+    waiting = AnalysisRun.objects.filter(status=RunStatus.PENDING).filter(
+        Q(progress_message__startswith=DEFERRED)
+        | Q(progress_message__startswith=DEBOUNCED, requested_at__lte=now - debounce))
+    if study is not None:
+        waiting = waiting.filter(study=study)
+    return sum(send(pk) for pk in list(waiting.values_list("pk", flat=True)))
 
 
 def claim(run_pk: int) -> bool:

@@ -64,14 +64,14 @@ def new_run(slug: str, send: bool = True) -> dict:
     digest = runs.fingerprint(runs.placements_table(study), parameters, version)
     run = AnalysisRun.objects.create(study=study, parameters=parameters, input_digest=digest,
                                      code_version=version)
-    sent = runs.enqueue(run.pk) if send else False
+    sent = runs.send(run.pk) if send else False
     return {"run_pk": run.pk, "sent": sent}
 
 
 def send_run(run_pk: int) -> dict:
     from studies.services import analysis_runs as runs
 
-    return {"run_pk": run_pk, "sent": runs.enqueue(run_pk)}
+    return {"run_pk": run_pk, "sent": runs.send(run_pk)}
 
 
 def request(slug: str) -> dict:

@@ -121,6 +121,14 @@ def send_rebuild(study_pk: int) -> dict:
     return {"sent": True}
 
 
+def runs() -> dict:
+    """Every analysis run: [status, progress message, reason], oldest first."""
+    from studies.models import AnalysisRun
+
+    rows = AnalysisRun.objects.order_by("pk").values_list("status", "progress_message", "reason")
+    return {"runs": [list(row) for row in rows]}
+
+
 def mismatches() -> dict:
     from studies.services.rebuild import find_mismatches
 

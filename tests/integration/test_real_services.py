@@ -67,6 +67,28 @@ def test_it_runs_a_task_through_redis_in_a_real_worker(tmp_path, postgres_url) -
         wait_for(lambda: stack.flow("mismatches")["mismatches"] == 0, timeout=60)
 
 
+@pytest.mark.postgres
+@pytest.mark.redis
+def test_a_worker_sends_the_debounced_analysis_of_a_submitted_read_when_it_is_due(
+    tmp_path, postgres_url
+) -> None:
+    """The submit leaves a waiting run in the database (no broker-held message); the real
+    worker's timer sends it once the debounce has passed, and the worker computes it (a
+    one-reader study: stored as failed, with the reason)."""
+    stack = Stack(tmp_path, postgres_url, redis_url())
+    stack.env["CAIRN_ANALYSIS_DEBOUNCE_SECONDS"] = "2"
+    stack.manage("migrate", "--noinput")
+    stack.flow("placement_flow")
+    [(status, message, _)] = stack.flow("runs")["runs"]
+    assert status == "pending" and message.startswith("waiting:")
+    with stack.worker(tmp_path / "worker.log"):
+        done = wait_for(
+            lambda: [r for r in stack.flow("runs")["runs"] if r[0] in ("completed", "failed")],
+            timeout=60,
+        )
+    assert done[0][0] == "failed" and "two readers" in done[0][2]
+
+
 def test_it_runs_a_task_through_the_filesystem_transport_with_sqlite(tmp_path) -> None:
     stack = Stack(tmp_path, f"sqlite:///{tmp_path / 'it.sqlite3'}", "filesystem://")
     stack.manage("migrate", "--noinput")

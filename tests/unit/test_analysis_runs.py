@@ -108,15 +108,16 @@ def test_a_run_deferred_while_the_broker_was_down_is_sent_again(analysed_study, 
 
     monkeypatch.setattr(tasks.compute_analysis, "apply_async", broker_down)
     run = analysis_runs.request_analysis(analysed_study)
-    assert not analysis_runs.enqueue(run.pk)
+    assert not analysis_runs.send(run.pk)
     run.refresh_from_db()
     assert run.status == RunStatus.PENDING and run.progress_message.startswith("deferred:")
     monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
-    assert analysis_runs.resend_deferred(analysed_study)
-    assert sent == [{"kwargs": {"run_pk": run.pk}, "countdown": None}]
+    assert analysis_runs.send_waiting_runs(analysed_study) == 1
+    assert sent == [{"kwargs": {"run_pk": run.pk}}]
     run.refresh_from_db()
     assert run.progress_message == "queued"
-    assert not analysis_runs.resend_deferred(analysed_study)
+    assert analysis_runs.send_waiting_runs(analysed_study) == 0
+    assert not analysis_runs.send(run.pk)  # queued once: a second caller sends nothing
 
 
 def test_it_marks_a_study_too_small_to_analyse_as_failed_with_the_reason(open_study, cast) -> None:
@@ -136,6 +137,7 @@ def test_submitting_reads_queues_at_most_one_run_per_study(open_study, cast, dja
 def test_a_submitted_read_asks_for_a_debounced_run_and_run_now_sends_it_at_once(
     open_study, cast, settings, monkeypatch, django_capture_on_commit_callbacks
 ) -> None:
+    """Submits fold into one waiting run, which is sent once its debounce has passed."""
     from studies import tasks
 
     settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45
@@ -145,10 +147,27 @@ def test_a_submitted_read_asks_for_a_debounced_run_and_run_now_sends_it_at_once(
         submit_all(open_study, cast["reader_a"])
         submit_all(open_study, cast["reader_b"])
     run = AnalysisRun.objects.get(status=RunStatus.PENDING)
-    assert sent == [{"kwargs": {"run_pk": run.pk}, "countdown": 45}]
+    assert sent == [] and run.progress_message.startswith("waiting:")
+    assert analysis_runs.send_waiting_runs(now=run.requested_at + timedelta(seconds=44)) == 0
+    assert analysis_runs.send_waiting_runs(now=run.requested_at + timedelta(seconds=45)) == 1
+    assert sent == [{"kwargs": {"run_pk": run.pk}}]
+
+
+def test_run_now_sends_a_debounced_run_at_once(
+    open_study, cast, settings, monkeypatch, django_capture_on_commit_callbacks
+) -> None:
+    from studies import tasks
+
+    settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45
+    sent = []
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
     with django_capture_on_commit_callbacks(execute=True):
-        assert analysis_runs.request_analysis(open_study).pk == run.pk
-    assert sent[1:] == [{"kwargs": {"run_pk": run.pk}, "countdown": None}]
+        submit_all(open_study, cast["reader_a"])
+        submit_all(open_study, cast["reader_b"])
+        run = analysis_runs.request_analysis(open_study)
+    assert AnalysisRun.objects.count() == 1
+    assert sent == [{"kwargs": {"run_pk": run.pk}}]
+    assert AnalysisRun.objects.get(pk=run.pk).progress_message == "queued"
 
 
 def test_a_run_stores_the_fingerprint_of_the_rows_it_analysed(open_study, cast) -> None:
@@ -189,15 +208,34 @@ def test_the_stored_tables_round_trip_as_frames(analysed_study) -> None:
     assert isinstance(frame, pd.DataFrame) and set(frame["landmark"]) == {"A", "B"}
 
 
-def test_a_worker_connecting_sends_every_deferred_run(analysed_study, monkeypatch) -> None:
-    """The consumer step in cairn/celery.py calls resend_all_deferred on each (re)connection."""
-    from cairn.celery import ResendDeferredRuns, app
+def test_a_worker_sends_the_waiting_runs_on_connecting_and_then_every_few_seconds(
+    analysed_study, monkeypatch
+) -> None:
+    """The consumer step in cairn/celery.py sends due runs at once and sets a repeating timer."""
+    from cairn.celery import SendWaitingRuns, app
     from studies import tasks
 
     run = analysis_runs.request_analysis(analysed_study)
     AnalysisRun.objects.filter(pk=run.pk).update(progress_message="deferred: broker down")
     sent = []
     monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
-    assert ResendDeferredRuns in app.steps["consumer"]
-    ResendDeferredRuns(parent=None).start(consumer=None)
-    assert sent == [{"kwargs": {"run_pk": run.pk}, "countdown": None}]
+
+    class Timer:
+        def __init__(self):
+            self.calls = []
+
+        def call_repeatedly(self, seconds, fun):
+            self.calls.append((seconds, fun))
+            return self
+
+        def cancel(self):
+            self.calls.clear()
+
+    consumer = type("Consumer", (), {"timer": Timer()})()
+    assert SendWaitingRuns in app.steps["consumer"]
+    step = SendWaitingRuns(parent=None)
+    step.start(consumer=consumer)
+    assert sent == [{"kwargs": {"run_pk": run.pk}}]
+    assert [seconds for seconds, _ in consumer.timer.calls] == [SendWaitingRuns.SEND_EVERY_S]
+    step.stop(consumer=consumer)
+    assert consumer.timer.calls == []
