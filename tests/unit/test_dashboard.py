@@ -8,7 +8,6 @@ import pandas as pd
 import pytest
 from django.urls import reverse
 
-from studies.constants import RunStatus
 from studies.models import AnalysisRun
 from studies.services import analysis_runs
 from tests.unit.test_analysis_runs import submit_all
