@@ -8,7 +8,7 @@ entry exists exactly when the action took effect. Login signals call it from
 from __future__ import annotations
 
 from django.db.models import Q, QuerySet
-from django.http import HttpRequest
+from django.http import HttpRequest, HttpResponse
 
 from .models import AuditEntry, AuditKind
 
@@ -59,6 +59,18 @@ def record(
         ip_address=client_address(request),
         detail=detail,
     )
+
+
+def export_download(request: HttpRequest, study, response: HttpResponse,
+                    name: str) -> HttpResponse:
+    """Make `response` a download named `name`, recorded in the audit log as an export.
+
+    The one way every download (API exports, dashboard tables, reports, protocols) is
+    named and audited.
+    """
+    record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
+    response["Content-Disposition"] = f'attachment; filename="{name}"'
+    return response
 
 
 def entries_for_study(study) -> QuerySet[AuditEntry]:

@@ -18,7 +18,6 @@ from django.utils.text import slugify
 from django.views.decorators.http import require_GET, require_POST
 
 from audit import log as audit
-from audit.models import AuditKind
 from studies.access import get_study
 from studies.constants import Role
 from studies.reporting import report as results
@@ -28,13 +27,6 @@ COORDINATOR = [Role.COORDINATOR]
 #: Figure options a URL may carry, per figure kind.
 FIGURE_OPTIONS = {"pair": ("reader_a", "reader_b"), "repeat": ("reader",), "drift": ("reader",),
                   "points": ("case", "landmark")}
-
-
-def _attachment(request: HttpRequest, study, response: HttpResponse, name: str) -> HttpResponse:
-    """Make `response` a download named `name`, recorded in the audit log as an export."""
-    audit.record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
-    response["Content-Disposition"] = f'attachment; filename="{name}"'
-    return response
 
 
 def _figure_url(slug: str, kind: str, **options: str) -> str:
@@ -137,7 +129,7 @@ def dashboard_csv(request: HttpRequest, slug: str, name: str) -> HttpResponse:
     except results.ReportError as error:
         raise Http404(str(error)) from error
     response = HttpResponse(frame.to_csv(index=False), content_type="text/csv; charset=utf-8")
-    return _attachment(request, study, response, f"{study.slug}-{name}.csv")
+    return audit.export_download(request, study, response, f"{study.slug}-{name}.csv")
 
 
 def _report_parts(request: HttpRequest, slug: str):
@@ -157,7 +149,7 @@ def report(request: HttpRequest, slug: str) -> HttpResponse:
     response = HttpResponse(results.report_html(study, run), content_type="text/html")
     if request.GET.get("download"):
         name = slugify(f"{study.slug}-report")
-        return _attachment(request, study, response, f"{name}.html")
+        return audit.export_download(request, study, response, f"{name}.html")
     return response
 
 
@@ -168,4 +160,4 @@ def report_pdf(request: HttpRequest, slug: str) -> HttpResponse:
     study, run = _report_parts(request, slug)
     pdf = results.report_pdf(results.report_html(study, run))
     response = HttpResponse(pdf, content_type="application/pdf")
-    return _attachment(request, study, response, f"{study.slug}-report.pdf")
+    return audit.export_download(request, study, response, f"{study.slug}-report.pdf")

@@ -21,7 +21,6 @@ from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST, require_safe
 
 from audit import log as audit
-from audit.models import AuditKind
 from studies.access import get_study, studies_for
 from studies.analysis.planning import (
     PlanningInputError,
@@ -230,11 +229,9 @@ def study_protocol_export(request: HttpRequest, slug: str, fmt: str) -> HttpResp
         body = protocol_io.protocol_to_csv(items)
     else:
         body = protocol_io.protocol_to_json(items, study=study.slug, protocol_version=version)
-    name = f"{study.slug}-protocol-v{version}.{fmt}"
-    audit.record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
     response = HttpResponse(body, content_type=EXPORT_TYPES[fmt])
-    response["Content-Disposition"] = f'attachment; filename="{name}"'
-    return response
+    return audit.export_download(request, study, response,
+                                 f"{study.slug}-protocol-v{version}.{fmt}")
 
 
 @login_required

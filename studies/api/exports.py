@@ -14,7 +14,6 @@ from rest_framework.response import Response
 from rest_framework.views import APIView
 
 from audit import log as audit
-from audit.models import AuditKind
 
 from ..access import get_study
 from ..constants import Role
@@ -38,11 +37,9 @@ def _download(
     name: str,
 ) -> HttpResponse:
     """An attachment download, recorded in the audit log as an export."""
-    audit.record(AuditKind.EXPORT, actor=request.user, study=study, request=request, file=name)
     response = HttpResponse(data, content_type=content_type)
-    response["Content-Disposition"] = f'attachment; filename="{name}"'
     response["Cache-Control"] = "no-store"
-    return response
+    return audit.export_download(request, study, response, name)
 
 
 class ReferenceSetExport(APIView):

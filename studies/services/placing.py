@@ -121,10 +121,13 @@ def _landmark(read: Read, code: str) -> Landmark:
 
 
 def _current(read: Read, landmark: Landmark) -> Placement | None:
+    """The landmark's stored placement in this read, with `landmark` set on it (None: none)."""
     try:
-        return Placement.objects.get(read=read, landmark=landmark)
+        placement = Placement.objects.get(read=read, landmark=landmark)
     except Placement.DoesNotExist:
         return None
+    placement.landmark = landmark
+    return placement
 
 
 def _check_values(data: EventInput) -> None:
@@ -175,24 +178,30 @@ def record_event(read: Read, user, data: EventInput) -> Recorded:
         with transaction.atomic():
             return _record(read, user, data)
     except IntegrityError:
-        stored = PlacementEvent.objects.filter(client_event_id=data.client_event_id).first()
+        stored = _stored(data.client_event_id)
         if stored is None:
             raise
         return _retried(read, stored)
+
+
+def _stored(client_event_id: uuid.UUID) -> PlacementEvent | None:
+    """The event already stored under this client id (a retry), if any."""
+    try:
+        return PlacementEvent.objects.get(client_event_id=client_event_id)
+    except PlacementEvent.DoesNotExist:
+        return None
 
 
 def _retried(read: Read, stored: PlacementEvent) -> Recorded:
     if stored.read_id != read.pk:
         raise ServiceError("this event id was already used for another read")
     version = Read.objects.filter(pk=read.pk).values_list("version", flat=True).get()
-    placement = (Placement.objects.select_related("landmark")
-                 .filter(read_id=read.pk, landmark_id=stored.landmark_id).first())
-    return Recorded(stored, False, version, placement)
+    return Recorded(stored, False, version, _current(read, stored.landmark))
 
 
 def _record(read: Read, user, data: EventInput) -> Recorded:
-    if PlacementEvent.objects.filter(client_event_id=data.client_event_id).exists():
-        stored = PlacementEvent.objects.get(client_event_id=data.client_event_id)
+    stored = _stored(data.client_event_id)
+    if stored is not None:
         return _retried(read, stored)
     read = _writable(read, user)
     if data.base_version is not None and data.base_version != read.version:
@@ -250,7 +259,6 @@ def store_snapshot(
             current.delete()
         return None
     placement = current or Placement(read=read, landmark=landmark)
-    placement.landmark = landmark
     placement.state = snapshot.state
     placement.x_mm, placement.y_mm, placement.z_mm = snapshot.xyz_mm or (None, None, None)
     placement.i_vox, placement.j_vox, placement.k_vox = snapshot.ijk_vox or (None, None, None)

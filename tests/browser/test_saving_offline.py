@@ -30,6 +30,16 @@ def pending_ids(page, code: str) -> list[str]:
     return [event["client_event_id"] for event in pending_events(page, code)]
 
 
+
+def open_offline_in_context(page, live_server, cast, read) -> str:
+    """Sign in as reader_a and open the read with the whole browser context offline for its
+    events (every tab of the context); returns the route pattern, to unroute later."""
+    events_url = f"**/api/v1/reads/{read.code}/events/"
+    log_in(page, live_server, cast["reader_a"])
+    page.context.route(events_url, lambda route: route.abort("internetdisconnected"))
+    open_read(page, live_server, read)
+    return events_url
+
 def test_it_sends_events_queued_during_a_network_cut_once_each(
     page, live_server, phantom_study, cast
 ):
@@ -212,11 +222,8 @@ def test_it_loses_no_event_of_two_offline_tabs_when_one_of_them_closes(
     from studies.models import PlacementEvent, Read
 
     code = phantom_study.code
-    events_url = f"**/api/v1/reads/{code}/events/"
     context = page.context
-    log_in(page, live_server, cast["reader_a"])
-    context.route(events_url, lambda route: route.abort("internetdisconnected"))
-    open_read(page, live_server, phantom_study)
+    events_url = open_offline_in_context(page, live_server, cast, phantom_study)
     tab_b = context.new_page()
     open_read(tab_b, live_server, phantom_study)
 
@@ -299,11 +306,8 @@ def test_it_sends_the_queue_of_a_closed_offline_tab_from_the_next_page_of_the_re
     from studies.models import PlacementEvent
 
     code = phantom_study.code
-    events_url = f"**/api/v1/reads/{code}/events/"
     context = page.context
-    log_in(page, live_server, cast["reader_a"])
-    context.route(events_url, lambda route: route.abort("internetdisconnected"))
-    open_read(page, live_server, phantom_study)
+    events_url = open_offline_in_context(page, live_server, cast, phantom_study)
     for key in ("Enter", "n", "n", "Enter"):  # ORB-L, then BEAD-M
         page.keyboard.press(key)
     wait_js(page, "document.getElementById('rd-save').dataset.state === 'offline'")

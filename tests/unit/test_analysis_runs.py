@@ -37,6 +37,26 @@ def submit_all(study, user, offset_vox=(0.0, 0.0, 0.0), absent_b=True) -> None:
 
 
 @pytest.fixture
+def sent_tasks(monkeypatch) -> list[dict]:
+    """The analysis task messages sent (apply_async keyword arguments), none really sent."""
+    from studies import tasks
+
+    sent: list[dict] = []
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
+    return sent
+
+
+@pytest.fixture
+def submitted_with_debounce(open_study, cast, settings, django_capture_on_commit_callbacks):
+    """Both readers' reads submitted with a 45 s debounce; returns the capture context."""
+    settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45
+    with django_capture_on_commit_callbacks(execute=True):
+        submit_all(open_study, cast["reader_a"])
+        submit_all(open_study, cast["reader_b"])
+    return open_study
+
+
+@pytest.fixture
 def analysed_study(open_study, cast):
     submit_all(open_study, cast["reader_a"])
     submit_all(open_study, cast["reader_b"], offset_vox=(0.5, -0.25, 0.5), absent_b=False)
@@ -134,39 +154,23 @@ def test_submitting_reads_queues_at_most_one_run_per_study(open_study, cast, dja
     assert AnalysisRun.objects.filter(status=RunStatus.PENDING).count() == 1
 
 
-def test_a_submitted_read_asks_for_a_debounced_run_and_run_now_sends_it_at_once(
-    open_study, cast, settings, monkeypatch, django_capture_on_commit_callbacks
+def test_submitted_reads_fold_into_one_waiting_run_sent_when_its_debounce_has_passed(
+    submitted_with_debounce, sent_tasks
 ) -> None:
-    """Submits fold into one waiting run, which is sent once its debounce has passed."""
-    from studies import tasks
-
-    settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45
-    sent = []
-    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
-    with django_capture_on_commit_callbacks(execute=True):
-        submit_all(open_study, cast["reader_a"])
-        submit_all(open_study, cast["reader_b"])
     run = AnalysisRun.objects.get(status=RunStatus.PENDING)
-    assert sent == [] and run.progress_message.startswith("waiting:")
+    assert sent_tasks == [] and run.progress_message.startswith("waiting:")
     assert analysis_runs.send_waiting_runs(now=run.requested_at + timedelta(seconds=44)) == 0
     assert analysis_runs.send_waiting_runs(now=run.requested_at + timedelta(seconds=45)) == 1
-    assert sent == [{"kwargs": {"run_pk": run.pk}}]
+    assert sent_tasks == [{"kwargs": {"run_pk": run.pk}}]
 
 
 def test_run_now_sends_a_debounced_run_at_once(
-    open_study, cast, settings, monkeypatch, django_capture_on_commit_callbacks
+    submitted_with_debounce, sent_tasks, django_capture_on_commit_callbacks
 ) -> None:
-    from studies import tasks
-
-    settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45
-    sent = []
-    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
     with django_capture_on_commit_callbacks(execute=True):
-        submit_all(open_study, cast["reader_a"])
-        submit_all(open_study, cast["reader_b"])
-        run = analysis_runs.request_analysis(open_study)
+        run = analysis_runs.request_analysis(submitted_with_debounce)
     assert AnalysisRun.objects.count() == 1
-    assert sent == [{"kwargs": {"run_pk": run.pk}}]
+    assert sent_tasks == [{"kwargs": {"run_pk": run.pk}}]
     assert AnalysisRun.objects.get(pk=run.pk).progress_message == "queued"
 
 
@@ -209,16 +213,13 @@ def test_the_stored_tables_round_trip_as_frames(analysed_study) -> None:
 
 
 def test_a_worker_sends_the_waiting_runs_on_connecting_and_then_every_few_seconds(
-    analysed_study, monkeypatch
+    analysed_study, sent_tasks
 ) -> None:
     """The consumer step in cairn/celery.py sends due runs at once and sets a repeating timer."""
     from cairn.celery import SendWaitingRuns, app
-    from studies import tasks
 
     run = analysis_runs.request_analysis(analysed_study)
     AnalysisRun.objects.filter(pk=run.pk).update(progress_message="deferred: broker down")
-    sent = []
-    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
 
     class Timer:
         def __init__(self):
@@ -235,7 +236,7 @@ def test_a_worker_sends_the_waiting_runs_on_connecting_and_then_every_few_second
     assert SendWaitingRuns in app.steps["consumer"]
     step = SendWaitingRuns(parent=None)
     step.start(consumer=consumer)
-    assert sent == [{"kwargs": {"run_pk": run.pk}}]
+    assert sent_tasks == [{"kwargs": {"run_pk": run.pk}}]
     assert [seconds for seconds, _ in consumer.timer.calls] == [SendWaitingRuns.SEND_EVERY_S]
     step.stop(consumer=consumer)
     assert consumer.timer.calls == []
