@@ -211,8 +211,13 @@ class Stack:
     def cpu_seconds(self) -> dict[str, float]:
         """CPU seconds (user + system) used so far by each part: web, worker, db, redis, client.
 
-        Each part is a process tree; a process that ended before the call is not counted,
-        so take the difference of two calls made while the stack is up.
+        Each part is a process tree: every live process's own time plus that of the
+        children it has reaped (PostgreSQL backends end and are replaced as connections
+        age out; their time stays with the postmaster). Take the difference of two calls
+        made while the stack is up. Two machine-wide
+        figures say how far the run can be trusted: "machine" is all busy CPU time (more
+        than the parts together: something else was running) and "steal" is time the
+        hypervisor gave to other guests (a noisy neighbour slows every part).
         """
         import psutil
 
@@ -225,7 +230,8 @@ class Stack:
                 for proc in [root, *root.children(recursive=True)]:
                     with suppress(psutil.Error):
                         times = proc.cpu_times()
-                        total += times.user + times.system
+                        total += (times.user + times.system + times.children_user
+                                  + times.children_system)
             except psutil.Error:
                 pass
             return total
@@ -236,12 +242,16 @@ class Stack:
         postmaster = self.pg.data / "postmaster.pid"
         db_pid = int(postmaster.read_text().split()[0]) if postmaster.exists() else None
         me = psutil.Process()
+        machine = psutil.cpu_times()
         return {
             "web": tree(pid_of(self.web)),
             "worker": tree(pid_of(self.worker)),
             "db": tree(db_pid),
             "redis": tree(pid_of(self.redis)),
             "client": sum(me.cpu_times()[:2]),
+            "machine": machine.user + machine.nice + machine.system + machine.irq
+            + machine.softirq,
+            "steal": getattr(machine, "steal", 0.0),
         }
 
     def manage(self, *args: str, timeout: float = 300) -> subprocess.CompletedProcess:
