@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 from django.contrib.auth.decorators import login_required
-from django.db.models import Count, Q
+from django.db.models import Count, Min, Q
 from django.http import HttpRequest, HttpResponse
 from django.shortcuts import render
 from django.urls import reverse
 
 from studies.access import get_own_read, get_study, roles_in, studies_for
 from studies.api.payloads import read_dict
-from studies.constants import ReadStatus, Role
+from studies.constants import ReadStatus, Role, StudyStatus
 from studies.services import reads
 
 
@@ -41,6 +41,12 @@ def worklist_context(user, study) -> dict:
     submitted = own.filter(status=ReadStatus.SUBMITTED).count()
     total = own.count()
     upcoming = next((r for r in available if r.status != ReadStatus.SUBMITTED), None)
+    # Reads still in their washout are hidden; say how many, and from when, so the count
+    # above the list adds up (nothing about which case they are).
+    later = own.none()
+    if study.status == StudyStatus.OPEN:
+        later = own.exclude(pk__in=[r.pk for r in available]).exclude(
+            status=ReadStatus.SUBMITTED)
     return {
         "study": study,
         "reads": available,
@@ -48,6 +54,9 @@ def worklist_context(user, study) -> dict:
         "total": total,
         "percent": round(100 * submitted / total) if total else 0,
         "next_read": upcoming,
+        "later": later.count(),
+        "later_from": later.filter(available_from__isnull=False)
+        .aggregate(first=Min("available_from"))["first"],
     }
 
 

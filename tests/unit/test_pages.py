@@ -51,3 +51,21 @@ def test_it_opens_the_reading_page_only_for_the_owner(open_study, cast) -> None:
     assert login(cast["reader_a"]).get(f"/read/{read.code}/").status_code == 200
     assert login(cast["reader_b"]).get(f"/read/{read.code}/").status_code == 404
     assert login(cast["pi"]).get(f"/read/{read.code}/").status_code == 404
+
+
+def test_it_says_how_many_reads_open_later_and_from_when(open_study, cast) -> None:
+    from datetime import timedelta
+
+    from django.utils import timezone
+
+    own = list(open_study.reads.filter(reader=cast["reader_a"]).order_by("worklist_position"))
+    waiting, unscheduled = own[0], own[1]
+    waiting.available_from = timezone.now() + timedelta(days=3)
+    waiting.save(update_fields=["available_from"])
+    unscheduled.available_from = None
+    unscheduled.save(update_fields=["available_from"])
+    page = login(cast["reader_a"]).get("/").content.decode()
+    assert f"0 of your {len(own)} reads submitted" in page
+    assert waiting.pseudonym not in page and unscheduled.pseudonym not in page
+    first = timezone.localtime(waiting.available_from)
+    assert f"2 more open later, the first on {first.day} {first:%b %Y}." in page
