@@ -248,7 +248,8 @@ def study_members(request: HttpRequest, slug: str) -> HttpResponse:
         else:
             messages.success(request, f"{user.get_username()} added as {role}.")
             return redirect("viewer-study-members", slug=study.slug)
-    members = study.memberships.select_related("user").order_by("role", "user__username")
+    members = list(study.memberships.select_related("user").order_by("role", "user__username"))
+    _mark_kept_roles(study, members)
     context = {
         "study": study,
         "form": form,
@@ -258,6 +259,45 @@ def study_members(request: HttpRequest, slug: str) -> HttpResponse:
     return render(
         request, "viewer/setup_members.html", context, status=400 if form.is_bound else 200
     )
+
+
+def _mark_kept_roles(study: Study, members: list) -> None:
+    """Set `keeps_role` on members whose role cannot be taken away now, with the reason
+    (the service decides; these are hints so the page offers no button that must fail)."""
+    opened = set(study.reads.filter(opened_at__isnull=False).values_list("reader_id", flat=True))
+    with_reads = set(study.reads.values_list("reader_id", flat=True))
+    coordinators = sum(1 for m in members if m.role == Role.COORDINATOR)
+    for m in members:
+        m.keeps_role = ""
+        if m.role == Role.COORDINATOR and coordinators == 1:
+            m.keeps_role = "the only coordinator"
+        elif m.role == Role.READER and m.user_id in opened:
+            m.keeps_role = "has opened reads"
+        elif (m.role == Role.READER and study.status == StudyStatus.CLOSED
+              and m.user_id in with_reads):
+            m.keeps_role = "the study is closed"
+
+
+@login_required
+@require_POST
+def study_member_remove(request: HttpRequest, slug: str) -> HttpResponse:
+    """Take one role away from one member (the service says when it cannot)."""
+    study = get_study(request.user, slug, COORDINATOR)
+    username, role = request.POST.get("username", ""), request.POST.get("role", "")
+    membership = (study.memberships.select_related("user")
+                  .filter(user__username=username, role=role).first())
+    if membership is None:
+        messages.error(request, f"{username!r} is not {role or 'a member'} in this study. "
+                                "Nothing was changed.")
+        return redirect("viewer-study-members", slug=study.slug)
+    try:
+        dropped = study_services.remove_member(study, membership.user, role, by=request.user)
+    except ServiceError as error:
+        messages.error(request, _sentence(error))
+    else:
+        moved = f" Their {dropped} unopened reads went to other readers." if dropped else ""
+        messages.success(request, f"{username} is no longer {role}.{moved}")
+    return redirect("viewer-study-members", slug=study.slug)
 
 
 def _open_blockers(study: Study, n_cases: int, n_readers: int) -> list[str]:

@@ -27,6 +27,8 @@ urlpatterns = [
         name="viewer-study-protocol-export",
     ),
     path("studies/<slug:slug>/members/", setup_views.study_members, name="viewer-study-members"),
+    path("studies/<slug:slug>/members/remove/", setup_views.study_member_remove,
+         name="viewer-study-member-remove"),
     path("studies/<slug:slug>/preview/", setup_views.study_preview, name="viewer-study-preview"),
     path("studies/<slug:slug>/open/", setup_views.study_open, name="viewer-study-open"),
     path("studies/<slug:slug>/close/", setup_views.study_close, name="viewer-study-close"),

@@ -153,6 +153,49 @@ def add_member(study: Study, user, role: str, by=None) -> Membership:
 
 
 @transaction.atomic
+def remove_member(study: Study, user, role: str, by=None) -> int:
+    """Take a role away; return how many unopened reads went with it.
+
+    A study keeps at least one coordinator. A reader can leave a draft study, or an open
+    one while none of their reads has been opened: their reads are dropped and the cases
+    go to the other readers (as when a reader is added), or nothing changes when too few
+    readers would remain for the design. Opened reads are part of the record, and a
+    closed study's reads stay as they are, so those readers keep their role.
+    """
+    study = Study.objects.select_for_update().get(pk=study.pk)
+    name = user.get_username()
+    membership = study.memberships.filter(user=user, role=role).first()
+    if membership is None:
+        raise ServiceError(f"{name!r} is not {role} in this study")
+    if role == Role.COORDINATOR and study.memberships.filter(role=role).count() == 1:
+        raise ServiceError("a study needs at least one coordinator; add another one first")
+    dropped = 0
+    if role == Role.READER:
+        own = study.reads.filter(reader=user)
+        opened = own.filter(opened_at__isnull=False).count()
+        if opened:
+            raise ServiceError(
+                f"{name!r} has opened {opened} read{'s' if opened != 1 else ''}; what they "
+                "recorded is part of the study, so they stay a reader"
+            )
+        if study.status == StudyStatus.CLOSED and own.exists():
+            raise ServiceError("the study is closed; its readers and reads stay as they are")
+        dropped = own.count()
+        own.delete()
+    membership.delete()
+    if role == Role.READER and study.status == StudyStatus.OPEN:
+        from .reads import sync_reads
+
+        try:
+            sync_reads(study)
+        except ServiceError as error:
+            raise ServiceError(f"without {name!r} the design cannot be met: {error}") from None
+    audit.record(AuditKind.ROLE_REMOVED, actor=by, study=study, subject=user, role=role,
+                 reads_dropped=dropped)
+    return dropped
+
+
+@transaction.atomic
 def open_study(study: Study, now=None) -> Study:
     """Freeze the protocol and design, and create every reader's reads."""
     from .reads import sync_reads

@@ -86,6 +86,7 @@ EXPECTED: dict[str, Expect] = {
     "viewer-study-protocol": Expect(COORDINATOR_PAGE, "slug"),
     "viewer-study-protocol-export": Expect(COORDINATOR_PAGE, "export"),
     "viewer-study-members": Expect(COORDINATOR_PAGE, "slug"),
+    "viewer-study-member-remove": Expect(COORDINATOR_ACTION, "slug", method="post"),
     "viewer-study-preview": Expect(COORDINATOR_PAGE, "slug"),
     "viewer-study-open": Expect(COORDINATOR_ACTION, "slug", method="post"),
     "viewer-study-close": Expect(COORDINATOR_ACTION, "slug", method="post"),

@@ -360,6 +360,99 @@ def test_it_keeps_readers_from_also_adjudicating_in_the_service(draft_study, cas
         studies.add_member(draft_study, cast["reader_b"], Role.ADJUDICATOR)
 
 
+def _remove(client: Client, username: str, role: str):
+    return client.post("/studies/draft-study/members/remove/",
+                       {"username": username, "role": role})
+
+
+def test_it_lets_an_unstarted_reader_leave_an_open_study_and_moves_their_cases(
+    draft_study, cast
+) -> None:
+    """Source: the design gives every case k first reads by distinct readers (k =
+    readers_per_case; common practice in multi-reader studies). After a reader who opened
+    nothing leaves, that must still hold with the remaining readers; the leaver's reads are
+    gone and the audit log names who took the role away."""
+    from audit.models import AuditEntry, AuditKind
+
+    studies.add_member(draft_study, cast["outsider"], Role.READER)
+    studies.open_study(draft_study)
+    theirs = draft_study.reads.filter(reader=cast["outsider"]).count()
+    assert theirs > 0
+    client = login(cast["pi"])
+    response = _remove(client, "outsider", Role.READER)
+    assert response.status_code == 302
+    assert not draft_study.reads.filter(reader=cast["outsider"]).exists()
+    assert not Membership.objects.filter(study=draft_study, user=cast["outsider"]).exists()
+    for case in draft_study.cases.all():
+        firsts = draft_study.reads.filter(case=case, read_number=1)
+        assert sorted(firsts.values_list("reader__username", flat=True)) == [
+            "reader_a", "reader_b"]
+    entry = AuditEntry.objects.get(kind=AuditKind.ROLE_REMOVED)
+    assert (entry.username, entry.subject, entry.detail) == (
+        "pi", cast["outsider"], {"role": Role.READER, "reads_dropped": theirs})
+    page = client.get("/studies/draft-study/members/").content.decode()
+    assert f"outsider is no longer reader. Their {theirs} unopened reads went to other" in page
+    assert "<code>outsider</code>" not in page
+
+
+def test_it_takes_a_role_from_a_draft_studys_member(draft_study, cast) -> None:
+    studies.add_member(draft_study, cast["outsider"], Role.COORDINATOR)
+    assert _remove(login(cast["outsider"]), "pi", Role.COORDINATOR).status_code == 302
+    assert _remove(login(cast["outsider"]), "reader_b", Role.READER).status_code == 302
+    assert sorted(draft_study.memberships.values_list("user__username", "role")) == [
+        ("outsider", Role.COORDINATOR), ("reader_a", Role.READER)]
+
+
+@pytest.mark.parametrize(
+    ("setup", "username", "role", "message"),
+    [
+        ("draft", "pi", Role.COORDINATOR, "A study needs at least one coordinator"),
+        ("draft", "nobody", Role.READER, "&#x27;nobody&#x27; is not reader in this study"),
+        ("draft", "reader_a", Role.ADJUDICATOR, "&#x27;reader_a&#x27; is not adjudicator"),
+        ("opened_read", "outsider", Role.READER, "&#x27;outsider&#x27; has opened 1 read;"),
+        ("open", "reader_a", Role.READER,
+         "Without &#x27;reader_a&#x27; the design cannot be met: readers_per_case=2"),
+        ("closed", "outsider", Role.READER, "The study is closed; its readers and reads stay"),
+    ],
+)
+def test_it_refuses_to_take_a_role_away_and_changes_nothing(
+    draft_study, cast, setup, username, role, message
+) -> None:
+    """Opened reads are the record; k readers per case must stay possible; a study keeps
+    a coordinator. Every refusal says why and leaves members and reads as they were."""
+    if setup in ("opened_read", "closed"):
+        studies.add_member(draft_study, cast["outsider"], Role.READER)
+    if setup != "draft":
+        studies.open_study(draft_study)
+    if setup == "opened_read":
+        read = draft_study.reads.filter(reader=cast["outsider"], read_number=1).first()
+        reads.open_read(read, cast["outsider"])
+    if setup == "closed":
+        studies.close_study(Study.objects.get(pk=draft_study.pk))
+    before = snapshot(draft_study)
+    client = login(cast["pi"])
+    assert _remove(client, username, role).status_code == 302
+    assert message in client.get("/studies/draft-study/members/").content.decode()
+    assert snapshot(draft_study) == before
+
+
+def test_it_offers_no_button_where_the_role_must_stay(draft_study, cast) -> None:
+    studies.add_member(draft_study, cast["outsider"], Role.READER)
+    studies.open_study(draft_study)
+    read = draft_study.reads.filter(reader=cast["outsider"], read_number=1).first()
+    reads.open_read(read, cast["outsider"])
+    page = login(cast["pi"]).get("/studies/draft-study/members/").content.decode()
+    rows = {row.split("</code>")[0]: row for row in page.split("<tr><td><code>")[1:]}
+    assert "keeps the role: the only coordinator" in rows["pi"]
+    assert "keeps the role: has opened reads" in rows["outsider"]
+    assert "Take role away" in rows["reader_a"] and "Take role away" not in rows["outsider"]
+
+
+def test_it_keeps_the_last_coordinator_in_the_service(draft_study, cast) -> None:
+    with pytest.raises(ServiceError, match="at least one coordinator"):
+        studies.remove_member(draft_study, cast["pi"], Role.COORDINATOR)
+
+
 # ----------------------------------------------------------------------------- preview
 
 
