@@ -74,14 +74,16 @@ def export_download(request: HttpRequest, study, response: HttpResponse,
 
 
 def entries_for_study(study) -> QuerySet[AuditEntry]:
-    """The study's own entries, plus the logins and failed logins of its members.
+    """The study's own entries, plus its members' logins, sign-outs, password changes and
+    failed logins.
 
     A failed login is matched on the user name typed, so attempts on a member's name
     show even when no account was authenticated.
     """
     member_ids = list(study.memberships.values_list("user_id", flat=True).distinct())
     member_names = list(study.memberships.values_list("user__username", flat=True).distinct())
-    logins = Q(kind__in=[AuditKind.LOGIN, AuditKind.LOGOUT], actor_id__in=member_ids)
+    logins = Q(kind__in=[AuditKind.LOGIN, AuditKind.LOGOUT, AuditKind.PASSWORD_CHANGED],
+               actor_id__in=member_ids)
     failures = Q(kind=AuditKind.LOGIN_FAILED, username__in=member_names)
     return AuditEntry.objects.filter(Q(study=study) | logins | failures).select_related(
         "actor", "subject"

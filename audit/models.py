@@ -1,7 +1,8 @@
 """The audit log: one append-only row per security-relevant action.
 
 Entries are written only through `audit.log.record`. A study's coordinators see the
-entries of their study, and the logins and failed logins of its members.
+entries of their study, and the logins, sign-outs, password changes and failed logins of
+its members.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ class AuditKind(models.TextChoices):
     EXPORT = "export", "Export"
     ROLE_ADDED = "role_added", "Role given"
     ROLE_REMOVED = "role_removed", "Role taken away"
+    PASSWORD_CHANGED = "password_changed", "Password changed"
 
 
 class AuditEntryQuerySet(models.QuerySet):

@@ -3,7 +3,7 @@ from __future__ import annotations
 from django.contrib.auth import views as auth_views
 from django.urls import include, path
 
-from . import adjudication_views, setup_views, views
+from . import account_views, adjudication_views, setup_views, views
 
 urlpatterns = [
     path("", views.home, name="viewer-home"),
@@ -15,6 +15,8 @@ urlpatterns = [
         name="viewer-login",
     ),
     path("logout/", auth_views.LogoutView.as_view(), name="viewer-logout"),
+    path("account/password/", account_views.PasswordChange.as_view(),
+         name="viewer-password-change"),
     path("studies/<slug:slug>/", views.study_detail, name="viewer-study"),
     path("read/<uuid:code>/", views.read_page, name="viewer-read"),
     # The coordinator's set-up pages (viewer/setup_views.py).

@@ -45,6 +45,56 @@ def test_it_records_a_sign_out(cast) -> None:
     assert AuditEntry.objects.filter(kind=AuditKind.LOGOUT, actor=cast["reader_b"]).exists()
 
 
+def _signs_in(username: str, password: str) -> bool:
+    response = Client().post(reverse("viewer-login"),
+                             {"username": username, "password": password})
+    return response.status_code == 302
+
+
+def test_it_changes_a_password_keeps_this_session_and_ends_the_others(open_study, cast) -> None:
+    """Source: Django's PasswordChangeView (django.contrib.auth.views) checks the old
+    password and the configured validators, and rotates the session auth hash so that
+    only the session making the change stays signed in."""
+    here, elsewhere = Client(), Client()
+    for client in (here, elsewhere):
+        assert client.post(reverse("viewer-login"),
+                           {"username": "reader_a", "password": "pw-reader_a"}).status_code == 302
+    response = here.post(reverse("viewer-password-change"), {
+        "old_password": "pw-reader_a",
+        "new_password1": "granite-ledge-41",
+        "new_password2": "granite-ledge-41",
+    })
+    assert response.status_code == 302 and response["Location"] == reverse("viewer-home")
+    assert "Your password was changed." in here.get(reverse("viewer-home")).content.decode()
+    assert elsewhere.get(reverse("viewer-home")).status_code == 302  # signed out
+    assert _signs_in("reader_a", "granite-ledge-41")
+    entry = AuditEntry.objects.get(kind=AuditKind.PASSWORD_CHANGED)
+    assert entry.actor == cast["reader_a"] and entry in entries_for_study(open_study)
+    assert "granite-ledge-41" not in repr(list(AuditEntry.objects.values()))
+
+
+@pytest.mark.parametrize(
+    ("old", "new1", "new2", "message"),
+    [
+        ("wrong", "granite-ledge-41", "granite-ledge-41", "Your old password was entered"),
+        ("pw-reader_a", "short1", "short1", "at least 8 characters"),
+        ("pw-reader_a", "password", "password", "This password is too common."),
+        ("pw-reader_a", "granite-ledge-41", "granite-ledge-42", "didn\u2019t match"),
+    ],
+)
+def test_it_refuses_a_bad_password_change_with_the_reason(cast, old, new1, new2, message) -> None:
+    """Source: Django's own messages for PasswordChangeForm, MinimumLengthValidator (8) and
+    CommonPasswordValidator (its shipped list); the password stays as it was."""
+    client = Client()
+    client.force_login(cast["reader_a"])
+    response = client.post(reverse("viewer-password-change"),
+                           {"old_password": old, "new_password1": new1, "new_password2": new2})
+    assert response.status_code == 200
+    assert message in response.content.decode()
+    assert _signs_in("reader_a", "pw-reader_a")
+    assert not AuditEntry.objects.filter(kind=AuditKind.PASSWORD_CHANGED).exists()
+
+
 def test_it_records_role_changes_with_who_made_them(open_study, cast) -> None:
     studies.add_member(open_study, cast["outsider"], Role.ADJUDICATOR, by=cast["pi"])
     entry = AuditEntry.objects.filter(kind=AuditKind.ROLE_ADDED, subject=cast["outsider"]).get()

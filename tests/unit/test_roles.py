@@ -78,6 +78,7 @@ EXPECTED: dict[str, Expect] = {
     "viewer-home": Expect(_rows(LOGIN, 200, 200, 200, 200, 200)),
     "viewer-login": Expect(_rows(200, 302, 302, 302, 302, 302)),
     "viewer-logout": Expect(_rows(302, 302, 302, 302, 302, 302), method="post"),
+    "viewer-password-change": Expect(_rows(LOGIN, 200, 200, 200, 200, 200)),
     "viewer-study": Expect(COORDINATOR_PAGE, "slug"),
     "viewer-read": Expect(_rows(LOGIN, 200, 404, 404, 404, 404), "read"),
     # only staff and coordinators (of any study) may create a study
