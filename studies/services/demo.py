@@ -23,7 +23,7 @@ from ..constants import EventKind, Role
 from ..imaging.phantom import PHANTOM_LANDMARKS, make_phantom
 from ..imaging.storage import remove_case_files, write_case_files
 from ..models import Read, Study
-from . import cases, placing, reads, studies
+from . import analysis_runs, cases, placing, reads, studies
 
 DEMO_SLUG = "phantom-demo"
 DEMO_PASSWORD = "cairn-demo"
@@ -144,6 +144,8 @@ def _build(written: list[str], stdout) -> Study:
     rng = np.random.default_rng(DEMO_SEED)
     for model in READERS:
         _simulate_reader(study, users[model.username], model, truth, start, rng)
+    # The simulated submits asked for a debounced run; the batch is complete, so send it now.
+    analysis_runs.request_analysis(study)
     return study
 
 

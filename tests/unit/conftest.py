@@ -20,3 +20,13 @@ def analysed(open_study, cast):
     run = analysis_runs.execute(analysis_runs.request_analysis(open_study).pk)
     assert run.status == RunStatus.COMPLETED
     return open_study, run
+
+
+@pytest.fixture
+def sent_tasks(monkeypatch) -> list[dict]:
+    """The analysis task messages sent (apply_async keyword arguments), none really sent."""
+    from studies import tasks
+
+    sent: list[dict] = []
+    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
+    return sent

@@ -37,16 +37,6 @@ def submit_all(study, user, offset_vox=(0.0, 0.0, 0.0), absent_b=True) -> None:
 
 
 @pytest.fixture
-def sent_tasks(monkeypatch) -> list[dict]:
-    """The analysis task messages sent (apply_async keyword arguments), none really sent."""
-    from studies import tasks
-
-    sent: list[dict] = []
-    monkeypatch.setattr(tasks.compute_analysis, "apply_async", lambda **kw: sent.append(kw))
-    return sent
-
-
-@pytest.fixture
 def submitted_with_debounce(open_study, cast, settings, django_capture_on_commit_callbacks):
     """Both readers' reads submitted with a 45 s debounce; returns the capture context."""
     settings.CAIRN_ANALYSIS_DEBOUNCE_SECONDS = 45

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from django.core.management import call_command
 
-from studies.constants import ReadStatus, Role
+from studies.constants import ReadStatus, Role, RunStatus
 from studies.imaging.geometry import world_to_voxel
 from studies.imaging.phantom import PHANTOM_LANDMARKS, make_phantom
 from studies.models import Case, PlacementEvent, Read, Study
@@ -14,8 +14,11 @@ from studies.services.demo import DEMO_SLUG, N_CASES, NEWCOMER, READERS
 
 
 @pytest.mark.slow
-def test_it_builds_the_demo_once_and_twice_is_the_same(db) -> None:
-    call_command("demo", "--no-serve")
+def test_it_builds_the_demo_once_and_twice_is_the_same(
+    db, sent_tasks, django_capture_on_commit_callbacks
+) -> None:
+    with django_capture_on_commit_callbacks(execute=True):
+        call_command("demo", "--no-serve")
     counts = (
         Study.objects.count(),
         Case.objects.count(),
@@ -46,6 +49,11 @@ def test_it_builds_the_demo_once_and_twice_is_the_same(db) -> None:
     spacings = {tuple(np.round(c.spacing_mm, 2)) for c in study.cases.all()}
     assert (0.9, 0.9, 2.5) in spacings
     call_command("rebuild_placements", "--check")
+    # The analysis is sent when the build ends (a worker starting with the demo runs it at
+    # once), not left waiting out the submit debounce.
+    assert list(study.analysis_runs.values_list("status", "progress_message")) == [
+        (RunStatus.PENDING, "queued")]
+    assert len(sent_tasks) == 1
 
 
 def test_the_phantom_puts_each_landmark_inside_its_bright_or_grey_feature() -> None:
