@@ -17,3 +17,6 @@ STORAGES = {
 }
 STATIC_ROOT = Path(tempfile.mkdtemp(prefix="cairn-test-static-"))  # noqa: F405
 CAIRN_UPLOAD_DIR = Path(tempfile.mkdtemp(prefix="cairn-test-uploads-"))  # noqa: F405
+# Files code writes under VAR_DIR at run time (the demo's detector file) go to a temp dir;
+# the paths settings.py derived from VAR_DIR at import are left as they are.
+VAR_DIR = Path(tempfile.mkdtemp(prefix="cairn-test-var-"))  # noqa: F405

@@ -28,7 +28,7 @@ from ..models import AnalysisRun, Study
 from ..services import analysis_runs
 from ..services.adjudication import latest_completed_run
 from ..services.analysis_runs import frame_of, latest_run, placements_table
-from ..services.predictions import latest_detector_run
+from ..services.predictions import latest_detector_run, predictions_frame
 from . import figures, quantities
 from .methods import Methods, methods
 from .progress import Pace, reader_pace, study_completion
@@ -240,8 +240,8 @@ def _draw(study: Study, derived: quantities.Derived, kind: str, options: dict) -
     detector = latest_detector_run(study)
     name = None
     if detector is not None and detector.predictions:
-        name, det = quantities.detector_errors(derived, pd.DataFrame(detector.predictions))
-        errors[name] = det
+        _, errors[detector.name] = quantities.detector_errors(derived, predictions_frame(detector))
+        name = detector.name
     return figures.success_svg(errors, name)
 
 

@@ -3,7 +3,9 @@
 Everything is generated from one seed, so the same seed gives the same study. Three
 readers have submitted reads simulated from a model with known per-reader bias and noise
 (one of them drifts slowly over eight weeks), including repeat reads after the washout;
-the fourth reader has a fresh worklist for a newcomer to try.
+the fourth reader has a fresh worklist for a newcomer to try. A simulated detector (the
+true points plus noise) is scored against the readers, and its predictions file is left in
+var/demo/ to upload again.
 """
 
 from __future__ import annotations
@@ -23,13 +25,16 @@ from ..constants import EventKind, Role
 from ..imaging.phantom import PHANTOM_LANDMARKS, make_phantom
 from ..imaging.storage import remove_case_files, write_case_files
 from ..models import Read, Study
-from . import analysis_runs, cases, placing, reads, studies
+from . import analysis_runs, cases, placing, predictions, reads, studies
 
 DEMO_SLUG = "phantom-demo"
 DEMO_PASSWORD = "cairn-demo"
 DEMO_SEED = 20261201
 N_CASES = 12
 WEEKS = 8.0
+DETECTOR_NAME = "simulated-detector"
+DETECTOR_FILE = "phantom-detector.csv"
+DETECTOR_SD_MM = 1.0
 
 
 @dataclass(frozen=True)
@@ -146,7 +151,28 @@ def _build(written: list[str], stdout) -> Study:
         _simulate_reader(study, users[model.username], model, truth, start, rng)
     # The simulated submits asked for a debounced run; the batch is complete, so send it now.
     analysis_runs.request_analysis(study)
+    data = detector_csv(study, truth, np.random.default_rng(DEMO_SEED + 1))
+    predictions.upload_predictions(study, coordinator, data, file_name=DETECTOR_FILE)
+    path = Path(settings.VAR_DIR) / "demo" / DETECTOR_FILE
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_bytes(data)
     return study
+
+
+def detector_csv(study: Study, truth: dict, rng: np.random.Generator) -> bytes:
+    """A simulated detector's predictions in the upload format: the true point plus
+    Gaussian noise of DETECTOR_SD_MM per axis, no bias; no prediction where a landmark is
+    absent. Ordered by case label and protocol order."""
+    rows = ["case,landmark,x_mm,y_mm,z_mm,detector"]
+    for case in study.cases.order_by("label"):
+        for landmark in PHANTOM_LANDMARKS:
+            point = truth[case.pk][landmark.code]
+            if np.isnan(point).any():
+                xyz = ["", "", ""]
+            else:
+                xyz = [f"{v:.3f}" for v in point + rng.normal(0.0, DETECTOR_SD_MM, size=3)]
+            rows.append(",".join([case.label, landmark.code, *xyz, DETECTOR_NAME]))
+    return ("\n".join(rows) + "\n").encode()
 
 
 def _simulate_reader(

@@ -10,13 +10,21 @@ from studies.constants import ReadStatus, Role, RunStatus
 from studies.imaging.geometry import world_to_voxel
 from studies.imaging.phantom import PHANTOM_LANDMARKS, make_phantom
 from studies.models import Case, PlacementEvent, Read, Study
-from studies.services.demo import DEMO_SLUG, N_CASES, NEWCOMER, READERS
+from studies.services.demo import (
+    DEMO_SLUG,
+    DETECTOR_FILE,
+    DETECTOR_NAME,
+    N_CASES,
+    NEWCOMER,
+    READERS,
+)
 
 
 @pytest.mark.slow
 def test_it_builds_the_demo_once_and_twice_is_the_same(
-    db, sent_tasks, django_capture_on_commit_callbacks
+    db, sent_tasks, django_capture_on_commit_callbacks, settings, tmp_path
 ) -> None:
+    settings.VAR_DIR = tmp_path
     with django_capture_on_commit_callbacks(execute=True):
         call_command("demo", "--no-serve")
     counts = (
@@ -54,6 +62,13 @@ def test_it_builds_the_demo_once_and_twice_is_the_same(
     assert list(study.analysis_runs.values_list("status", "progress_message")) == [
         (RunStatus.PENDING, "queued")]
     assert len(sent_tasks) == 1
+    # A simulated detector is scored against the readers, and its file is left to upload.
+    run = study.detector_runs.get()
+    assert (run.name, run.status, run.n_rows) == (DETECTOR_NAME, "completed", N_CASES * 6)
+    raters = {row[1] for row in run.tables["detector"]["data"]}
+    assert DETECTOR_NAME in raters and {"ada", "ben", "cleo"} <= raters
+    lines = (tmp_path / "demo" / DETECTOR_FILE).read_text().splitlines()
+    assert lines[0] == "case,landmark,x_mm,y_mm,z_mm,detector" and len(lines) == 1 + N_CASES * 6
 
 
 def test_the_phantom_puts_each_landmark_inside_its_bright_or_grey_feature() -> None:

@@ -177,3 +177,25 @@ def test_the_upload_api_returns_row_errors_and_the_page_lists_them(results, cast
     )
     assert page.status_code == 400 and b'id="row-errors"' in page.content
     assert b"NOPE" in page.content and DetectorRun.objects.count() == 1
+
+
+def test_the_success_figure_draws_the_uploaded_detector_beside_the_readers(
+    results, cast, monkeypatch
+) -> None:
+    """The detector's radial errors drawn are its known offsets from the consensus (0, 1.5
+    x 3, 2.4, 3.5 mm, computed by hand), under its upload name, next to the readers'."""
+    from studies.reporting import figures, report
+
+    drawn = {}
+    draw = figures.success_svg
+    monkeypatch.setattr(figures, "success_svg",
+                        lambda errors, name: drawn.update(errors=errors, name=name) or
+                        draw(errors, name))
+    predictions.upload_predictions(results.study, cast["pi"], offset_csv(results))
+    svg = report.figure_svg(results.study, "success")
+    assert svg.lstrip().startswith("<?xml") and svg.rstrip().endswith("</svg>")
+    assert drawn["name"] == "net-7"
+    assert set(drawn["errors"]) == {"net-7", *analysis_runs.placements_table(results.study)
+                                    ["reader"].astype(str)}
+    np.testing.assert_allclose(np.sort(drawn["errors"]["net-7"]),
+                               [0.0, 1.5, 1.5, 1.5, 2.4, 3.5], atol=1e-9)

@@ -14,6 +14,7 @@ from django.db import connection, transaction
 from pypdf import PdfReader
 from pypdf.generic import ContentStream
 
+from studies.analysis.detection import DEFAULT_RADII_MM
 from studies.constants import RunStatus
 from studies.reporting import report
 from studies.services import analysis_runs
@@ -100,6 +101,7 @@ def test_every_number_in_the_demo_methods_paragraph_matches_the_study(demo):
         demo["n_cases"], demo["n_landmarks"], len(demo["readers"]), study.readers_per_case,
         100 * study.repeat_fraction, study.washout_days, run.n_reads, study.tolerance_mm,
         run.summary["parameters"]["outlier_multiple"], 1.96, 2.77, 0.5, 5.0,
+        *DEFAULT_RADII_MM,  # the demo's simulated detector: success rates at these radii
     }
     found = set(numbers_in(text))
     assert found == {float(v) for v in expected}

@@ -6,10 +6,19 @@ import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
+from django.conf import settings
 from django.core.management.base import BaseCommand
 
-from studies.services.demo import COORDINATOR, DEMO_PASSWORD, NEWCOMER, READERS, build_demo
+from studies.services.demo import (
+    COORDINATOR,
+    DEMO_PASSWORD,
+    DETECTOR_FILE,
+    NEWCOMER,
+    READERS,
+    build_demo,
+)
 
 ADDRESS = "127.0.0.1:8000"
 
@@ -42,6 +51,8 @@ class Command(BaseCommand):
         for reader in READERS:
             self.stdout.write(f"  reader with simulated reads: {reader.username}")
         self.stdout.write(f"  reader with a fresh worklist: {NEWCOMER[0]}")
+        detector = Path(settings.VAR_DIR) / "demo" / DETECTOR_FILE
+        self.stdout.write(f"A simulated detector's predictions to upload: {detector}")
         self.stdout.write("Press Ctrl-C to stop the web server and the worker.\n")
 
     def _serve(self, address: str) -> None:
