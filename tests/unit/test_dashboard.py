@@ -194,8 +194,11 @@ def test_a_scored_detector_joins_the_success_rate_figure_and_the_methods(client,
     predictions = [{"case": r.case, "landmark": r.landmark, "x_mm": r.x_mm + 1.0,
                     "y_mm": r.y_mm, "z_mm": r.z_mm, "detector": "auto"}
                    for r in consensus.itertuples()]
+    stored = {"columns": ["case", "landmark", "x_mm", "y_mm", "z_mm"],  # as an upload stores
+              "data": [[p["case"], p["landmark"], p["x_mm"], p["y_mm"], p["z_mm"]]
+                       for p in predictions]}
     DetectorRun.objects.create(study=study, name="auto", uploaded_by=cast["pi"],
-                               predictions=predictions, status=DetectorStatus.COMPLETED)
+                               predictions=stored, status=DetectorStatus.COMPLETED)
     svg = login(client, cast["pi"]).get(reverse(
         "viewer-dashboard-figure", kwargs={"slug": study.slug, "kind": "success"})).content
     assert b'id="success-auto"' in svg
