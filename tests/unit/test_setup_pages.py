@@ -536,3 +536,11 @@ def test_it_links_the_set_up_pages_from_the_study_page(draft_study, cast) -> Non
     html = login(cast["pi"]).get("/studies/draft-study/").content.decode()
     for path in ("edit/", "protocol/", "members/", "preview/"):
         assert f'href="/studies/draft-study/{path}"' in html
+
+
+def test_a_new_study_page_says_what_to_do_next(cast) -> None:
+    studies.create_study(name="Empty", slug="empty", coordinator=cast["pi"])
+    page = login(cast["pi"]).get("/studies/empty/").content.decode()
+    assert 'No landmarks yet: <a href="/studies/empty/protocol/">define the protocol</a>' in page
+    assert 'No readers yet: <a href="/studies/empty/members/">add members</a>' in page
+    assert 'No cases yet: <a href="/studies/empty/upload/">import scans</a>' in page
