@@ -85,6 +85,7 @@ def dashboard(request: HttpRequest, slug: str) -> HttpResponse:
         "tables": results.shown_tables(study, done) if done else [],
         "csv_tables": results.available_tables(study, done) if done else [],
         "choices": choices, "chosen": chosen, "figures": figures,
+        "detector": results.detector_summary(study, done),
         "config": config,
     })
 

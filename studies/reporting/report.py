@@ -173,6 +173,38 @@ def shown_tables(study: Study, run: AnalysisRun) -> list[dict]:
     return out
 
 
+def detector_summary(study: Study, run: AnalysisRun | None) -> dict | None:
+    """The latest scored detector against the readers, per landmark, for the dashboard.
+
+    rows: landmark, the detector's MRE (mm), the readers' lowest and highest MRE (each
+    against the consensus of the other readers), the Williams index with its 95% interval
+    and verdict (studies.analysis.scoring). current: whether the detector was scored on
+    the same placements and parameters as `run` (False when reads came in since).
+    None when no detector has been scored.
+    """
+    detector = latest_detector_run(study)
+    if detector is None:
+        return None
+    errors = frame_of(detector.tables["detector"])
+    williams = frame_of(detector.tables["williams"]).set_index("landmark")
+    rows = []
+    for landmark, group in errors.groupby("landmark", sort=False):
+        own = group[group["rater"] == detector.name]["mre_mm"]
+        readers = group[group["rater"] != detector.name]["mre_mm"].dropna()
+        w = williams.loc[landmark] if landmark in williams.index else None
+        rows.append({
+            "landmark": landmark,
+            "detector_mre_mm": float(own.iloc[0]) if len(own) else math.nan,
+            "readers_mre_mm": (float(readers.min()), float(readers.max())) if len(readers)
+            else None,
+            "williams": None if w is None else {
+                "index": float(w["williams_index"]), "ci_low": float(w["ci_low"]),
+                "ci_high": float(w["ci_high"]), "verdict": str(w["verdict"])},
+        })
+    return {"run": detector, "rows": rows,
+            "current": run is not None and detector.analysis_input_digest == run.input_digest}
+
+
 def _sort_key(value: object) -> str:
     if isinstance(value, bool) or value is None:
         return str(value)

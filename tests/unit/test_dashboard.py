@@ -210,3 +210,30 @@ def test_a_scored_detector_joins_the_success_rate_figure_and_the_methods(client,
     assert errors == pytest.approx([1.0] * len(consensus), abs=1e-9)
     text = report.methods(report.methods_parameters(study, run)).text
     assert "The automatic detector auto" in text
+
+
+def test_the_dashboard_sums_up_the_latest_detector_against_the_readers(client, cast, analysed):
+    """Detector points 1 mm from the consensus along x: its MRE is 1.00 mm on every
+    landmark (radial error definition, check-values section 7); the Williams verdicts are
+    the stored table's; a detector scored on other placements is marked as such."""
+    from studies.models import DetectorRun
+    from studies.services import predictions
+
+    study, run = analysed
+    consensus = analysis_runs.frame_of(run.tables["consensus"]).dropna(subset=["x_mm"])
+    lines = ["case,landmark,x_mm,y_mm,z_mm,detector"] + [
+        f"{r.case},{r.landmark},{r.x_mm + 1.0!r},{r.y_mm!r},{r.z_mm!r},plus-one"
+        for r in consensus.itertuples()]
+    predictions.upload_predictions(study, cast["pi"], ("\n".join(lines) + "\n").encode())
+    page = login(client, cast["pi"]).get(reverse("viewer-dashboard", args=[study.slug]))
+    html = page.content.decode()
+    card = html[html.index('id="detector"'):html.index('id="figures"')]
+    assert "Detector against the readers: plus-one" in card and "changed since" not in card
+    williams = predictions.latest_detector_tables(study)["williams"]
+    for landmark in sorted(set(consensus["landmark"])):
+        assert f"<tr><td>{landmark}</td><td>1.00</td>" in card
+    for verdict in williams["verdict"]:
+        assert verdict in card
+    DetectorRun.objects.filter(study=study).update(analysis_input_digest="other placements")
+    html = client.get(reverse("viewer-dashboard", args=[study.slug])).content.decode()
+    assert "Reads or settings changed since" in html
