@@ -64,6 +64,8 @@ from . import audit_views  # noqa: E402
 
 urlpatterns += [
     path("studies/<slug:slug>/audit/", audit_views.study_audit, name="viewer-study-audit"),
+    path("studies/<slug:slug>/audit.csv", audit_views.study_audit_csv,
+         name="viewer-study-audit-csv"),
 ]
 
 urlpatterns += [path("", include("viewer.upload_urls"))]

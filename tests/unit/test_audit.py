@@ -219,6 +219,9 @@ DOWNLOADS = (
              {"fmt": "csv"}),
     Download("protocol-json", "viewer-study-protocol-export", "{slug}-protocol-v1.json",
              {"fmt": "json"}),
+    Download("audit-csv", "viewer-study-audit-csv", "{slug}-audit.csv"),
+    Download("audit-csv-one-kind", "viewer-study-audit-csv", "{slug}-audit-export.csv",
+             query="?kind=export"),
 )
 
 _ATTACHMENT = re.compile(r'attachment; filename="(?P<name>[^"]+)"')
@@ -300,3 +303,33 @@ def test_a_refused_or_missing_download_and_an_on_screen_report_record_no_export(
     on_screen = pi.get(reverse("viewer-report", kwargs={"slug": study.slug}))
     assert on_screen.status_code == 200 and "Content-Disposition" not in on_screen
     assert not exports_after(before).exists()
+
+
+def test_the_audit_page_shows_one_kind_and_its_csv_holds_the_same_rows(open_study, cast) -> None:
+    """The filter keeps only the asked-for kind, on the page and in the CSV (RFC 4180
+    text, read back with Python's csv module); an unknown kind shows everything."""
+    import csv
+    import io
+
+    record(AuditKind.LOGIN, actor=cast["reader_a"])
+    record(AuditKind.LOGIN_FAILED, username="reader_b")
+    studies.add_member(open_study, cast["outsider"], Role.ADJUDICATOR, by=cast["pi"])
+    client = signed_in(cast["pi"])
+    url = reverse("viewer-study-audit", args=[open_study.slug])
+    page = client.get(url, {"kind": AuditKind.LOGIN_FAILED}).content.decode()
+    rows = page[page.index('id="audit"'):]
+    assert "audit-login_failed" in rows and "audit-login\"" not in rows
+    assert "audit-role_added" not in rows
+    assert "audit-role_added" in client.get(url, {"kind": "nonsense"}).content.decode()
+
+    csv_url = reverse("viewer-study-audit-csv", args=[open_study.slug])
+    table = list(csv.DictReader(io.StringIO(client.get(csv_url).content.decode())))
+    kinds = [row["what"] for row in table]
+    assert AuditKind.LOGIN in kinds and AuditKind.ROLE_ADDED in kinds
+    added = next(r for r in table if r["what"] == AuditKind.ROLE_ADDED
+                 and r["about"] == "outsider")
+    assert (added["who"], added["details"]) == ("pi", '{"role": "adjudicator"}')
+    only = list(csv.DictReader(io.StringIO(
+        client.get(csv_url, {"kind": AuditKind.LOGIN_FAILED}).content.decode())))
+    assert [(r["what"], r["who"]) for r in only] == [(AuditKind.LOGIN_FAILED, "reader_b")]
+

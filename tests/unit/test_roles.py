@@ -121,6 +121,7 @@ EXPECTED: dict[str, Expect] = {
     "viewer-report": Expect(COORDINATOR_PAGE, "slug", extra={"coordinator": {404}}),
     "viewer-report-pdf": Expect(COORDINATOR_PAGE, "slug", extra={"coordinator": {404}}),
     "viewer-study-audit": Expect(COORDINATOR_PAGE, "slug"),
+    "viewer-study-audit-csv": Expect(COORDINATOR_PAGE, "slug"),
     # adjudication pages: adjudicators see the queue, and only queued cases (none here)
     "viewer-adjudication": Expect(_rows(LOGIN, 403, 200, 404, 404, 200), "slug"),
     "viewer-review": Expect(_rows(LOGIN, 403, 404, 404, 404, ALLOWED), "review"),
