@@ -265,7 +265,8 @@ def _mark_kept_roles(study: Study, members: list) -> None:
     """Set `keeps_role` on members whose role cannot be taken away now, with the reason
     (the service decides; these are hints so the page offers no button that must fail)."""
     opened = set(study.reads.filter(opened_at__isnull=False).values_list("reader_id", flat=True))
-    with_reads = set(study.reads.values_list("reader_id", flat=True))
+    closed_with_reads = (set(study.reads.values_list("reader_id", flat=True))
+                         if study.status == StudyStatus.CLOSED else set())
     coordinators = sum(1 for m in members if m.role == Role.COORDINATOR)
     for m in members:
         m.keeps_role = ""
@@ -273,8 +274,7 @@ def _mark_kept_roles(study: Study, members: list) -> None:
             m.keeps_role = "the only coordinator"
         elif m.role == Role.READER and m.user_id in opened:
             m.keeps_role = "has opened reads"
-        elif (m.role == Role.READER and study.status == StudyStatus.CLOSED
-              and m.user_id in with_reads):
+        elif m.role == Role.READER and m.user_id in closed_with_reads:
             m.keeps_role = "the study is closed"
 
 

@@ -166,6 +166,16 @@ def open_read(page, live_server, read) -> None:
     wait_js(page, "performance.getEntriesByName('viewer:full-ready').length > 0", timeout=30000)
 
 
+def place_two_while_unreachable(page) -> None:
+    """From the keyboard: ORB-L at the crosshair, then ORB-R one axial slice up; wait until
+    the page says it is offline (the caller has made the events endpoint fail)."""
+    page.keyboard.press("Enter")
+    page.keyboard.press("n")
+    page.keyboard.press("ArrowUp")
+    page.keyboard.press("Enter")
+    wait_js(page, "document.getElementById('rd-save').dataset.state === 'offline'")
+
+
 def pane_box(page, plane: str) -> dict:
     """The overlay canvas of a pane, in page CSS px (the area pointer positions map to)."""
     return page.locator(f".pane[data-plane='{plane}'] canvas.pane-overlay").bounding_box()

@@ -14,7 +14,14 @@ import pytest
 from nibabel.affines import apply_affine
 from PIL import Image
 
-from tests.browser.conftest import build_phantom_study, log_in, open_read, pane_box, wait_js
+from tests.browser.conftest import (
+    build_phantom_study,
+    log_in,
+    open_read,
+    pane_box,
+    place_two_while_unreachable,
+    wait_js,
+)
 from tests.browser.test_rendering import PLANES, expected_slice, window_grey
 
 pytestmark = pytest.mark.browser
@@ -39,6 +46,8 @@ def zooms_of(affine: np.ndarray) -> np.ndarray:
 
 def view(shape, zooms, plane: str, size: dict, zoom: float = 1.0, centre=None):
     """CSS px per voxel (kx, ky) and the slice coordinate at the pane centre.
+
+    `size` is a pane box from `pane_box`; only its width and height are read.
 
     The slice (n_u x n_v voxels of su x sv mm) is fitted to the pane at its physical aspect
     ratio, then zoomed; slice coordinates run against the voxel axes (radiological display:
@@ -170,7 +179,7 @@ def test_it_draws_a_scale_bar_whose_length_matches_its_label_at_every_zoom(
     zooms = zooms_of(affine)
     open_as_reader_a(page, live_server, cast, phantom_study)
     box = pane_box(page, "axial")
-    size = {"width": box["width"], "height": box["height"]}
+    size = box
     for zoom in (1.0, 1.25**2):
         if zoom != 1.0:
             page.keyboard.press("+")
@@ -209,7 +218,7 @@ def test_it_zooms_about_the_pointer_and_pans_by_the_drag(
     zooms = zooms_of(affine)
     open_as_reader_a(page, live_server, cast, phantom_study)
     box = pane_box(page, "axial")
-    size = {"width": box["width"], "height": box["height"]}
+    size = box
     depth = slice_of(page, "axial")
     p = (0.42 * size["width"], 0.57 * size["height"])
     q = (p[0] + 40, p[1] + 30)
@@ -342,7 +351,7 @@ def test_it_resets_zoom_pan_and_window_by_key_and_by_button(
     case = phantom_study.case
     open_as_reader_a(page, live_server, cast, phantom_study)
     box = pane_box(page, "axial")
-    size = {"width": box["width"], "height": box["height"]}
+    size = box
     spot = (0.3 * size["width"], 0.35 * size["height"])
     fitted = voxel_at(data.shape, zooms, "axial", size, *spot, slice_of(page, "axial"))
 
@@ -448,7 +457,7 @@ def test_it_jumps_to_a_placed_point_in_every_pane(
     zooms = zooms_of(affine)
     open_as_reader_a(page, live_server, cast, phantom_study)
     box = pane_box(page, "axial")
-    size = {"width": box["width"], "height": box["height"]}
+    size = box
     click_at(page, "axial", size, data.shape, zooms, (60.3, 70.2, slice_of(page, "axial")))
     wait_js(page, "cairnRead.queue.pending.length === 0 && cairnRead.book.get('ORB-L') !== null")
     point = stored_voxel(phantom_study, "ORB-L", affine)
@@ -473,7 +482,7 @@ def test_it_jumps_to_a_placed_point_in_every_pane(
         for plane, (_, _, normal) in PLANES.items():
             assert slice_of(page, plane) == int(np.floor(point[normal] + 0.5)), plane
             pane = pane_box(page, plane)
-            psize = {"width": pane["width"], "height": pane["height"]}
+            psize = pane
             zoom = page.evaluate(f"cairnRead.viewer.panes.{plane}.zoom")
             if zoom > 1:  # centred on the point
                 x, y = psize["width"] / 2, psize["height"] / 2
@@ -514,7 +523,7 @@ def test_it_draws_markers_full_on_their_slice_faint_within_a_few_mm_and_not_beyo
     zooms = zooms_of(affine)
     open_as_reader_a(page, live_server, cast, phantom_study)
     coronal = pane_box(page, "coronal")
-    csize = {"width": coronal["width"], "height": coronal["height"]}
+    csize = coronal
     k_base = slice_of(page, "axial")
     click_at(
         page, "coronal", csize, data.shape, zooms, (55.4, slice_of(page, "coronal"), k_base + 0.3)
@@ -525,7 +534,7 @@ def test_it_draws_markers_full_on_their_slice_faint_within_a_few_mm_and_not_beyo
     page.keyboard.press("n")  # ORB-L no longer active: its plain marker shape
     page.focus(".pane[data-plane='axial']")
     axial = pane_box(page, "axial")
-    asize = {"width": axial["width"], "height": axial["height"]}
+    asize = axial
     x, y = screen_at(data.shape, zooms, "axial", asize, point)
 
     looks = {}
@@ -654,11 +663,7 @@ def test_it_retries_after_server_errors_and_stores_each_event_once_in_order(
 
     page.route(f"**/api/v1/reads/{phantom_study.code}/events/", unavailable_three_times)
     open_read(page, live_server, phantom_study)
-    page.keyboard.press("Enter")  # ORB-L at the crosshair
-    page.keyboard.press("n")
-    page.keyboard.press("ArrowUp")
-    page.keyboard.press("Enter")  # ORB-R one slice up
-    wait_js(page, "document.getElementById('rd-save').dataset.state === 'offline'")
+    place_two_while_unreachable(page)
     wait_js(page, "cairnRead.queue.pending.length === 0", timeout=20000)
     wait_js(page, "document.getElementById('rd-save').dataset.state === 'saved'")
 

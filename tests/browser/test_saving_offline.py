@@ -7,7 +7,7 @@ import json
 
 import pytest
 
-from tests.browser.conftest import log_in, open_read, wait_js
+from tests.browser.conftest import log_in, open_read, place_two_while_unreachable, wait_js
 
 pytestmark = pytest.mark.browser
 
@@ -57,11 +57,7 @@ def test_it_sends_events_queued_during_a_network_cut_once_each(
     page.route(events_url, lambda route: route.abort("internetdisconnected"))
     open_read(page, live_server, phantom_study)
 
-    page.keyboard.press("Enter")  # ORB-L at the crosshair
-    page.keyboard.press("n")
-    page.keyboard.press("ArrowUp")
-    page.keyboard.press("Enter")  # ORB-R one slice up
-    wait_js(page, "document.getElementById('rd-save').dataset.state === 'offline'")
+    place_two_while_unreachable(page)
     assert "Offline" in page.inner_text("#rd-save")
     first_two = pending_ids(page, phantom_study.code)
     assert len(first_two) == 2
